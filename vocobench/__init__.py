@@ -1,0 +1,6 @@
+"""vocobench: quality-against-latency benchmarking for waveform diffusion vocoders."""
+from __future__ import annotations
+
+__version__ = "0.1.0"
+
+__all__ = ["__version__"]

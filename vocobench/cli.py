@@ -1,0 +1,211 @@
+"""The ``vocobench`` command. Exit codes: 0 success, 1 a check or gate failed, 2 unusable input."""
+from __future__ import annotations
+
+import argparse
+import sys
+import tomllib
+import warnings
+from pathlib import Path
+from typing import Any, Callable, Sequence
+
+from . import __version__
+from .errors import InputError
+
+DEMO_CONFIG = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "config.toml"
+
+
+def _option(text: str) -> tuple[str, Any]:
+    key, sep, val = text.partition("=")
+    if not sep or not key:
+        raise argparse.ArgumentTypeError(f"expected KEY=VALUE, got {text!r}")
+    try:
+        return key, tomllib.loads(f"v = {val}")["v"]
+    except tomllib.TOMLDecodeError:
+        return key, val
+
+
+def cmd_run(a: argparse.Namespace) -> int:
+    from .config import load_config
+    from .runner import run
+
+    cfg = load_config(a.config)
+    out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,
+              scheduler=a.scheduler)
+    print(f"run directory: {out}")
+    return 0
+
+
+def cmd_demo(a: argparse.Namespace) -> int:
+    if not DEMO_CONFIG.is_file():
+        raise InputError("the bundled demo scenario is missing; install vocobench from a source "
+                         "checkout with 'pip install -e .'", source=str(DEMO_CONFIG))
+    a.config = DEMO_CONFIG
+    a.out = a.out or Path("reports") / "pier-announcements"
+    return cmd_run(a)
+
+
+def cmd_check(a: argparse.Namespace) -> int:
+    from .check import check_target
+
+    target, options, search = a.target, dict(a.option or []), list(a.search_path or [])
+    if a.config:
+        from .config import load_config
+
+        cfg = load_config(a.config)
+        target = target or cfg.target
+        options = {**cfg.options, **options}
+        search = [*cfg.search_path, *search]
+    if not target:
+        raise InputError("name a TARGET ('package.module:object') or give --config", field="TARGET")
+    findings = check_target(target, options, search or ["."])
+    for f in findings:
+        print(f)
+    bad = [f for f in findings if not f.ok]
+    print(f"{target}: {'contract holds' if not bad else f'{len(bad)} violation(s)'}")
+    return 1 if bad else 0
+
+
+def cmd_schedules(a: argparse.Namespace) -> int:
+    from . import schedules as S
+
+    if a.kind is None:
+        print("schedule kinds for [[sweep.schedule]] (kind = ...):")
+        for k in S.KINDS:
+            opts = ", ".join(sorted(S.KIND_OPTIONS[k])) or "no options"
+            print(f"  {k:<16} options: {opts}")
+        print("\nexamples (final ᾱ, final noise level √ᾱ):")
+        for name, s in S.named_examples().items():
+            print(f"  {name:<58} steps {len(s):>4}  ᾱ_N {s.alpha_bars[-1]:.3e}  √ᾱ_N {s.noise_levels[-1]:.3e}")
+        return 0
+    opts = dict(a.option or [])
+    spec = S.make_spec({"kind": a.kind, **opts}, source="command line")
+    sched = spec.build(a.steps, S.linear(a.training_steps))
+    with _pandas_display():
+        print(sched.to_frame().to_string(index=False, float_format=lambda v: f"{v:.6g}"))
+    return 0
+
+
+class _pandas_display:
+    def __enter__(self) -> None:
+        import pandas as pd
+
+        self._ctx = pd.option_context("display.max_rows", 2000)
+        self._ctx.__enter__()
+
+    def __exit__(self, *exc: object) -> None:
+        self._ctx.__exit__(*exc)
+
+
+def cmd_metrics(a: argparse.Namespace) -> int:
+    from .metrics import DEFAULT_METRICS, available_metrics
+
+    for m in available_metrics():
+        mark = "*" if m["name"] in DEFAULT_METRICS else " "
+        print(f"{mark} {m['name']:<10} {m.get('description', '')}")
+        for c in m["columns"]:
+            d = {True: "higher is better", False: "lower is better", None: "diagnostic"}[c["higher_is_better"]]
+            print(f"      {c['name']:<18} [{c['unit']}] {d}")
+    print("* = used when [metrics] use is not given")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="vocobench",
+        description="Quality against latency for waveform diffusion vocoders: sweep step counts, "
+                    "noise schedules, samplers and seeds over your own recordings, score and time "
+                    "every output, and decide.",
+        epilog="Objective scores are no substitute for listening tests.")
+    p.add_argument("--version", action="version", version=f"vocobench {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", required=True)
+
+    r = sub.add_parser("run", help="run or resume a sweep described by a TOML config",
+                       description="Run (or resume: finished items are kept) the sweep in CONFIG.")
+    r.add_argument("config", metavar="CONFIG", type=Path, help="TOML run configuration")
+    _run_flags(r)
+    r.set_defaults(fn=cmd_run)
+
+    d = sub.add_parser("demo", help="run the bundled pier-announcement scenario (CPU, about a minute)",
+                       description="Sweep the analytic demo denoiser over the bundled test set.")
+    _run_flags(d, out_default="reports/pier-announcements")
+    d.set_defaults(fn=cmd_demo)
+
+    c = sub.add_parser("check", help="check a vocoder or denoiser against the plug-in contract",
+                       description="Run TARGET on a short probe input and explain every contract "
+                                   "violation. Exit 1 if any.")
+    c.add_argument("target", metavar="TARGET", nargs="?", help="package.module:object or file.py:object")
+    c.add_argument("-o", "--option", action="append", type=_option, metavar="KEY=VALUE",
+                   help="keyword option for the class or factory (VALUE in TOML syntax); repeatable")
+    c.add_argument("--search-path", action="append", metavar="DIR", help="extra import folder")
+    c.add_argument("--config", type=Path, help="take target and options from this run config")
+    c.set_defaults(fn=cmd_check)
+
+    s = sub.add_parser("schedules", help="list schedule kinds, or print one as β, ᾱ and noise levels",
+                       description="Without KIND: list kinds and examples. With KIND: print the "
+                                   "schedule for --steps as a table.")
+    s.add_argument("kind", metavar="KIND", nargs="?")
+    s.add_argument("--steps", type=int, default=6)
+    s.add_argument("--training-steps", type=int, default=1000,
+                   help="length of the linear training schedule used by kind 'stride'")
+    s.add_argument("-o", "--option", action="append", type=_option, metavar="KEY=VALUE")
+    s.set_defaults(fn=cmd_schedules)
+
+    m = sub.add_parser("metrics", help="list the available metrics, units and directions")
+    m.set_defaults(fn=cmd_metrics)
+
+    for name, mod in _plugins():
+        mod(sub)
+    return p
+
+
+def _run_flags(r: argparse.ArgumentParser, out_default: str | None = None) -> None:
+    r.add_argument("--out", type=Path, metavar="DIR",
+                   help=f"run directory (default: {out_default or 'from the config, else reports/run'})")
+    r.add_argument("--workers", type=int, metavar="N", help="parallel synthesis-and-scoring processes")
+    r.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
+    r.add_argument("--no-report", action="store_true", help="skip tables, plots and listening page")
+    r.add_argument("-q", "--quiet", action="store_true", help="no progress output")
+
+
+def _plugins() -> list[tuple[str, Callable[[Any], None]]]:
+    """Subcommands contributed by later stages (report, gate), if present."""
+    out = []
+    try:
+        from .report.cli import add_arguments, main as report_main
+
+        def add_report(sub: Any) -> None:
+            rp = sub.add_parser("report", help="re-render tables, plots, recommendation and page",
+                                description="Regenerate every report of RUN_DIR from stored results.")
+            add_arguments(rp)
+            rp.set_defaults(fn=report_main)
+
+        out.append(("report", add_report))
+    except ImportError:
+        pass
+    try:
+        from .gate.cli import register
+
+        out.append(("gate", register))
+    except ImportError:
+        pass
+    return out
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("default")
+            warnings.formatwarning = lambda m, c, *a, **k: f"vocobench: warning: {m}\n"
+            return int(args.fn(args) or 0)
+    except InputError as e:
+        print(f"vocobench: error: {e}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("vocobench: interrupted; finished items are kept, re-run to resume", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,243 @@
+"""The two plug-in contracts, loading users' objects by ``package.module:object``, and the adapter
+that turns a denoiser plus a built-in sampler into a vocoder.
+
+**Vocoder** (end to end): attributes ``sample_rate`` (int) and ``frontend`` (a
+:class:`~vocobench.frontend.MelFrontEnd` or a dict of its fields); called as
+``vocoder(features, schedule, rng)`` with log-mel ``features`` ``(n_mels, frames)``, a
+:class:`~vocobench.schedules.NoiseSchedule` and a ``numpy.random.Generator``, it returns a 1-D
+waveform of about ``frames * hop_length`` samples. Optional: ``samplers`` (names it implements; it is
+then also passed ``sampler=NAME``), ``version`` (str), ``nfe(schedule, sampler)``, ``synchronize()``.
+
+**Denoiser** (noise predictor): ``sample_rate``, ``frontend``, ``training_schedule`` (a
+NoiseSchedule or a β list), ``conditioning`` (``"step"``: fractional 0-based training step, or
+``"level"``: continuous noise level √ᾱ) and ``predict_noise(x_t, features, t)`` with ``x_t``
+``(B, samples)``, ``features`` ``(B, n_mels, frames)`` and ``t`` ``(B,)``, returning ε̂ shaped like
+``x_t``. Optional: ``version``, ``synchronize()``.
+
+Outputs may be any array-like, torch tensors included (converted without importing torch).
+"""
+from __future__ import annotations
+
+import importlib
+import importlib.util
+import inspect
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Mapping, Protocol, Sequence, runtime_checkable
+
+import numpy as np
+
+from .errors import InputError
+from .frontend import MelFrontEnd
+from .samplers import available_samplers, make_plan, run_plan
+from .schedules import NoiseSchedule
+
+
+@runtime_checkable
+class Vocoder(Protocol):
+    sample_rate: int
+    frontend: Any
+
+    def __call__(self, features: np.ndarray, schedule: NoiseSchedule,
+                 rng: np.random.Generator) -> Any: ...
+
+
+@runtime_checkable
+class Denoiser(Protocol):
+    sample_rate: int
+    frontend: Any
+    training_schedule: Any
+    conditioning: str
+
+    def predict_noise(self, x_t: np.ndarray, features: np.ndarray, t: np.ndarray) -> Any: ...
+
+
+def to_numpy(x: Any) -> np.ndarray:
+    """Array-like (numpy, list, torch tensor on any device or dtype) to a numpy array."""
+    if hasattr(x, "detach") and hasattr(x, "cpu"):        # torch.Tensor, without importing torch
+        x = x.detach().cpu()
+        if not str(getattr(x, "dtype", "")).startswith(("torch.float64", "torch.int")):
+            x = x.float()
+        return x.numpy()
+    return np.asarray(x)
+
+
+# -- loading -------------------------------------------------------------------------------
+def resolve(target: str, search_path: Sequence[str | Path] = ()) -> Any:
+    """Import ``package.module:object`` (or ``path/to/file.py:object``; ``object`` may be dotted)."""
+    if not isinstance(target, str) or ":" not in target:
+        raise InputError("target must look like 'package.module:object'", field="vocoder.target",
+                         value=target)
+    mod_name, _, attr = target.rpartition(":")
+    if not mod_name or not attr:
+        raise InputError("target must look like 'package.module:object'", field="vocoder.target",
+                         value=target)
+    for p in reversed([str(Path(p).resolve()) for p in search_path]):
+        if p not in sys.path:
+            sys.path.insert(0, p)
+    try:
+        if mod_name.endswith(".py"):
+            path = Path(mod_name)
+            if not path.is_file():
+                raise InputError("file not found", field="vocoder.target", value=mod_name)
+            spec = importlib.util.spec_from_file_location(f"vocobench_user_{path.stem}", path)
+            module = importlib.util.module_from_spec(spec)  # type: ignore[arg-type]
+            sys.modules[spec.name] = module  # type: ignore[union-attr]
+            spec.loader.exec_module(module)  # type: ignore[union-attr]
+        else:
+            module = importlib.import_module(mod_name)
+    except InputError:
+        raise
+    except Exception as e:  # the user's import failed: report its cause
+        raise InputError(f"cannot import '{mod_name}': {type(e).__name__}: {e}",
+                         field="vocoder.target", value=target) from None
+    obj: Any = module
+    for part in attr.split("."):
+        if not hasattr(obj, part):
+            raise InputError(f"'{mod_name}' has no attribute '{attr}'", field="vocoder.target",
+                             value=target)
+        obj = getattr(obj, part)
+    return obj
+
+
+def instantiate(obj: Any, options: Mapping[str, Any], target: str = "") -> Any:
+    """Class or factory → instance, with ``options`` as keyword arguments; instances pass through."""
+    is_instance = not inspect.isclass(obj) and (hasattr(obj, "predict_noise") or
+                                                hasattr(obj, "sample_rate"))
+    if is_instance:
+        if options:
+            raise InputError("options were given but the target is already an instance",
+                             field="vocoder.options", value=sorted(options))
+        return obj
+    if not callable(obj):
+        raise InputError("target is neither a class, a factory nor a vocoder/denoiser instance",
+                         field="vocoder.target", value=target)
+    try:
+        inspect.signature(obj).bind(**options)
+    except TypeError as e:
+        raise InputError(f"options do not fit {target}: {e}", field="vocoder.options",
+                         value=sorted(options)) from None
+    except ValueError:
+        pass
+    return obj(**options)
+
+
+# -- the adapter the runner drives ---------------------------------------------------------
+def _frontend(obj: Any, source: str) -> MelFrontEnd:
+    fe = getattr(obj, "frontend", None)
+    if isinstance(fe, MelFrontEnd):
+        return fe
+    if isinstance(fe, Mapping):
+        return MelFrontEnd.from_dict(fe, source=source)
+    raise InputError("must declare 'frontend' (a MelFrontEnd or a dict of its fields)",
+                     source=source, field="frontend", value=type(fe).__name__)
+
+
+def _training(obj: Any, source: str) -> NoiseSchedule | None:
+    ts = getattr(obj, "training_schedule", None)
+    if ts is None or isinstance(ts, NoiseSchedule):
+        return ts
+    try:
+        return NoiseSchedule(np.asarray(to_numpy(ts), dtype=np.float64), "training")
+    except InputError as e:
+        raise InputError(f"invalid training_schedule: {e}", source=source) from None
+
+
+@dataclass
+class Plugin:
+    """A user's vocoder or denoiser, described and ready to synthesise."""
+
+    obj: Any
+    kind: str                       # "vocoder" | "denoiser"
+    target: str = ""
+    options: dict[str, Any] = field(default_factory=dict)
+    sample_rate: int = 0
+    frontend: MelFrontEnd | None = None
+    training_schedule: NoiseSchedule | None = None
+    conditioning: str | None = None
+    version: str | None = None
+
+    @classmethod
+    def wrap(cls, obj: Any, target: str = "", options: Mapping[str, Any] | None = None) -> "Plugin":
+        source = target or type(obj).__name__
+        if hasattr(obj, "predict_noise"):
+            kind = "denoiser"
+        elif callable(obj):
+            kind = "vocoder"
+        else:
+            raise InputError("object has neither predict_noise() nor __call__()", source=source,
+                             field="vocoder.target", value=type(obj).__name__)
+        sr = getattr(obj, "sample_rate", None)
+        if isinstance(sr, bool) or not isinstance(sr, (int, np.integer)) or sr <= 0:
+            raise InputError("must declare sample_rate as a positive integer", source=source,
+                             field="sample_rate", value=sr)
+        fe = _frontend(obj, source)
+        p = cls(obj, kind, target, dict(options or {}), int(sr), fe,
+                version=getattr(obj, "version", None))
+        if kind == "denoiser":
+            p.training_schedule = _training(obj, source)
+            p.conditioning = getattr(obj, "conditioning", None)
+            if p.conditioning not in ("step", "level"):
+                raise InputError("conditioning must be 'step' or 'level'", source=source,
+                                 field="conditioning", value=p.conditioning)
+            if p.conditioning == "step" and p.training_schedule is None:
+                raise InputError("a step-conditioned denoiser must declare training_schedule",
+                                 source=source, field="training_schedule")
+        return p
+
+    def samplers(self) -> list[str]:
+        if self.kind == "denoiser":
+            return available_samplers()
+        return list(getattr(self.obj, "samplers", None) or ["native"])
+
+    def describe(self) -> dict[str, Any]:
+        return {"target": self.target, "options": self.options, "kind": self.kind,
+                "version": self.version, "sample_rate": self.sample_rate,
+                "frontend": self.frontend.to_dict() if self.frontend else None,
+                "conditioning": self.conditioning,
+                "training_schedule": (self.training_schedule.describe()
+                                      if self.training_schedule is not None else None)}
+
+    def nfe(self, schedule: NoiseSchedule, sampler: str) -> int:
+        fn = getattr(self.obj, "nfe", None) if self.kind == "vocoder" else None
+        return int(fn(schedule, sampler)) if fn else len(schedule)
+
+    def synthesizer(self, sampler: str, options: Mapping[str, Any] | None = None
+                    ) -> Callable[[np.ndarray, NoiseSchedule, np.random.Generator], Any]:
+        """A function ``(features, schedule, rng) -> waveform`` for one sampler."""
+        if self.kind == "vocoder":
+            if sampler not in self.samplers():
+                raise InputError(f"this vocoder implements samplers {self.samplers()}",
+                                 field="sweep.samplers", value=sampler)
+            if getattr(self.obj, "samplers", None):
+                return lambda f, s, r: self.obj(f, s, r, sampler=sampler, **dict(options or {}))
+            return self.obj
+        den, fe = self.obj, self.frontend
+        opts = dict(options or {})
+        make_plan(sampler, _probe_schedule(), "level", None, opts)   # validate name and options
+
+        def synth(features: np.ndarray, schedule: NoiseSchedule, rng: np.random.Generator):
+            plan = make_plan(sampler, schedule, self.conditioning or "step",
+                             self.training_schedule, opts)
+            feats = np.asarray(features)[None]
+            n = fe.expected_samples(feats.shape[-1])  # type: ignore[union-attr]
+            return run_plan(plan, den.predict_noise, feats, n, rng)[0]
+
+        return synth
+
+    def synchronize(self) -> None:
+        fn = getattr(self.obj, "synchronize", None)
+        if callable(fn):
+            fn()
+
+
+def _probe_schedule() -> NoiseSchedule:
+    return NoiseSchedule(np.array([0.1, 0.2]), "probe")
+
+
+def load_plugin(target: str, options: Mapping[str, Any] | None = None,
+                search_path: Sequence[str | Path] = ()) -> Plugin:
+    """Resolve, instantiate and wrap a user's object named ``package.module:object``."""
+    obj = instantiate(resolve(target, search_path), dict(options or {}), target)
+    return Plugin.wrap(obj, target, options)

@@ -1,0 +1,44 @@
+"""Vocoder outputs: validation into a 1-D float waveform, content hash, saving."""
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .contracts import to_numpy
+from .errors import ItemFailure
+
+
+def as_waveform(out: Any) -> np.ndarray:
+    """Check a vocoder's return value; raise :class:`ItemFailure` with the reason if unusable."""
+    try:
+        y = to_numpy(out)
+    except Exception as e:
+        raise ItemFailure(f"output is not array-like ({type(out).__name__}: {e})") from None
+    if y.ndim != 1:
+        raise ItemFailure(f"output has shape {y.shape}; a 1-D waveform is required")
+    if not np.issubdtype(y.dtype, np.floating):
+        raise ItemFailure(f"output dtype is {y.dtype}; a floating-point waveform is required")
+    if y.size == 0:
+        raise ItemFailure("output is empty")
+    bad = ~np.isfinite(y)
+    if bad.any():
+        raise ItemFailure(f"output has {int(bad.sum())} non-finite samples (NaN/Inf)")
+    return y.astype(np.float32, copy=False)
+
+
+def audio_sha(y: np.ndarray) -> str:
+    """SHA-256 (first 16 hex digits) of the float32 little-endian samples."""
+    return hashlib.sha256(np.ascontiguousarray(y, dtype="<f4").tobytes()).hexdigest()[:16]
+
+
+def save_audio(path: Path, y: np.ndarray, sample_rate: int) -> None:
+    """24-bit FLAC; samples beyond ±1 are clipped in the saved copy only (scores use the original)."""
+    import soundfile as sf
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(path.name + ".part")
+    sf.write(str(tmp), np.clip(y, -1.0, 1.0), sample_rate, format="FLAC", subtype="PCM_24")
+    tmp.replace(path)

@@ -1,0 +1,262 @@
+"""Noise (β) schedules: builders, validation, and views as ᾱ and noise levels.
+
+Conventions (Ho et al. 2020, "Denoising Diffusion Probabilistic Models"): step t = 1..N has
+β_t ∈ (0, 1), α_t = 1 − β_t, ᾱ_t = ∏_{s≤t} α_s, and x_t = √ᾱ_t·x_0 + √(1−ᾱ_t)·ε.
+Arrays here are 0-indexed: ``betas[0]`` is β_1.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping, Sequence
+
+import numpy as np
+
+from .errors import InputError
+
+# Ho et al. 2020, Sec. 4: T = 1000, β linear from 1e-4 to 0.02.
+DDPM_T = 1000
+DDPM_BETA_START = 1e-4
+DDPM_BETA_END = 0.02
+# Nichol & Dhariwal 2021, "Improved DDPM", Eq. 17: offset s = 0.008, β clipped at 0.999.
+COSINE_S = 0.008
+COSINE_MAX_BETA = 0.999
+# Kong et al. 2021, "DiffWave", fast-sampling inference schedule for the 6-step base model.
+# Values from memory of the paper/reference code, not re-checked against the paper: treat as such.
+KONG2021_FAST6 = (0.0001, 0.001, 0.01, 0.05, 0.2, 0.5)
+
+
+@dataclass(frozen=True)
+class NoiseSchedule:
+    """A validated β sequence; ``train_steps`` holds training-step indices for sub-sequences."""
+
+    betas: np.ndarray
+    name: str = "custom"
+    train_steps: np.ndarray | None = None
+    params: Mapping[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        b = np.asarray(self.betas, dtype=np.float64)
+        object.__setattr__(self, "betas", b)
+        validate_betas(b, source=f"schedule '{self.name}'")
+
+    def __len__(self) -> int:
+        return len(self.betas)
+
+    @property
+    def alphas(self) -> np.ndarray:
+        return 1.0 - self.betas
+
+    @property
+    def alpha_bars(self) -> np.ndarray:
+        return np.cumprod(self.alphas)
+
+    @property
+    def noise_levels(self) -> np.ndarray:
+        """√ᾱ_t, the signal scale used as the continuous noise level by e.g. WaveGrad."""
+        return np.sqrt(self.alpha_bars)
+
+    @property
+    def sigmas(self) -> np.ndarray:
+        """√(1−ᾱ_t), the noise standard deviation at step t."""
+        return np.sqrt(1.0 - self.alpha_bars)
+
+    def to_frame(self):
+        import pandas as pd
+
+        return pd.DataFrame({"step": np.arange(1, len(self) + 1), "beta": self.betas,
+                             "alpha_bar": self.alpha_bars, "noise_level": self.noise_levels,
+                             "sigma": self.sigmas})
+
+    def describe(self) -> dict[str, Any]:
+        d: dict[str, Any] = {"name": self.name, "steps": len(self), **dict(self.params),
+                             "betas": [float(x) for x in self.betas]}
+        if self.train_steps is not None:
+            d["train_steps"] = [int(x) for x in self.train_steps]
+        return d
+
+
+def validate_betas(betas: np.ndarray, *, source: str = "schedule", length: int | None = None) -> None:
+    if betas.ndim != 1 or betas.size == 0:
+        raise InputError("β must be a non-empty 1-D list", source=source, field="betas",
+                         value=betas.shape)
+    if not np.all(np.isfinite(betas)):
+        raise InputError("β must be finite", source=source, field="betas",
+                         value=betas[~np.isfinite(betas)][0].item())
+    out = (betas <= 0) | (betas >= 1)
+    if np.any(out):
+        i = int(np.flatnonzero(out)[0])
+        raise InputError(f"β must lie in (0, 1); β_{i + 1} does not", source=source,
+                         field="betas", value=float(betas[i]))
+    if length is not None and betas.size != length:
+        raise InputError(f"expected {length} β values", source=source, field="betas",
+                         value=betas.size)
+
+
+# -- builders ---------------------------------------------------------------------------------
+def linear(n: int, beta_start: float = DDPM_BETA_START, beta_end: float = DDPM_BETA_END) -> NoiseSchedule:
+    """β linearly spaced (Ho et al. 2020)."""
+    return NoiseSchedule(np.linspace(beta_start, beta_end, _n(n)), "linear",
+                         params={"beta_start": beta_start, "beta_end": beta_end})
+
+
+def quadratic(n: int, beta_start: float = DDPM_BETA_START, beta_end: float = DDPM_BETA_END) -> NoiseSchedule:
+    """√β linearly spaced (the 'quad' option of Ho et al. 2020's reference code; common practice)."""
+    b = np.linspace(math.sqrt(beta_start), math.sqrt(beta_end), _n(n)) ** 2
+    return NoiseSchedule(b, "quadratic", params={"beta_start": beta_start, "beta_end": beta_end})
+
+
+def geometric(n: int, beta_start: float = DDPM_BETA_START, beta_end: float = 0.5) -> NoiseSchedule:
+    """β geometrically spaced: equal ratios between steps (common practice, no source)."""
+    b = np.geomspace(beta_start, beta_end, _n(n))
+    return NoiseSchedule(b, "geometric", params={"beta_start": beta_start, "beta_end": beta_end})
+
+
+def cosine(n: int, s: float = COSINE_S, max_beta: float = COSINE_MAX_BETA) -> NoiseSchedule:
+    """ᾱ(t) = f(t)/f(0), f(t) = cos²(((t/N + s)/(1 + s))·π/2), β clipped (Nichol & Dhariwal 2021)."""
+    n = _n(n)
+    t = np.arange(n + 1) / n
+    f = np.cos((t + s) / (1 + s) * np.pi / 2) ** 2
+    b = np.clip(1 - f[1:] / f[:-1], 0.0, max_beta)
+    b = np.maximum(b, 1e-12)
+    return NoiseSchedule(b, "cosine", params={"s": s, "max_beta": max_beta})
+
+
+def kong_fast6() -> NoiseSchedule:
+    """The 6-step fast-sampling β set of Kong et al. 2021 (DiffWave); values from memory."""
+    return NoiseSchedule(np.array(KONG2021_FAST6), "kong2021-fast6",
+                         params={"source": "Kong et al. 2021, values from memory"})
+
+
+def explicit(betas: Sequence[float], name: str = "explicit") -> NoiseSchedule:
+    b = np.asarray(list(betas), dtype=np.float64)
+    return NoiseSchedule(b, name)
+
+
+def subsequence(training: NoiseSchedule, n: int, stride: str = "uniform") -> NoiseSchedule:
+    """Sub-sequence τ of a training schedule (Song et al. 2021, DDIM, Sec. 4.2 and App. D.2).
+
+    ``uniform``: τ_i = ⌊c·i⌋; ``quadratic``: τ_i = ⌊c·i²⌋, with c chosen so the last step is
+    (close to) T. The β of the sub-sequence are 1 − ᾱ_{τ_i}/ᾱ_{τ_{i−1}} so that its ᾱ equal the
+    training ᾱ at the chosen steps.
+    """
+    n = _n(n)
+    T = len(training)
+    if n > T:
+        raise InputError(f"cannot take {n} steps out of a {T}-step training schedule",
+                         source=f"schedule '{training.name}'", field="steps", value=n)
+    i = np.arange(1, n + 1, dtype=np.float64)
+    if stride == "uniform":
+        tau = np.floor(i * T / n)
+    elif stride == "quadratic":
+        tau = np.floor((i / n) ** 2 * T)
+    else:
+        raise InputError("stride must be 'uniform' or 'quadratic'", field="stride", value=stride)
+    tau = np.clip(tau.astype(int), 1, T)
+    # strictly increasing steps: push collisions forward (quadratic stride at small i)
+    for k in range(1, n):
+        tau[k] = max(tau[k], tau[k - 1] + 1)
+    if tau[-1] > T:
+        tau = tau - (tau[-1] - T)
+    ab = training.alpha_bars[tau - 1]
+    prev = np.concatenate([[1.0], ab[:-1]])
+    b = 1 - ab / prev
+    return NoiseSchedule(b, f"{stride}-stride", train_steps=tau - 1,
+                         params={"stride": stride, "training": training.name, "training_steps": T})
+
+
+def _n(n: int) -> int:
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n <= 0:
+        raise InputError("number of steps must be a positive integer", field="steps", value=n)
+    return int(n)
+
+
+# -- schedule specs used in a sweep ------------------------------------------------------------
+FIXED_LENGTH = {"kong2021-fast6", "explicit"}
+
+
+@dataclass(frozen=True)
+class ScheduleSpec:
+    """How a sweep builds an inference schedule of N steps: a named family plus its options."""
+
+    name: str
+    kind: str
+    options: Mapping[str, Any] = field(default_factory=dict)
+
+    @property
+    def fixed_length(self) -> int | None:
+        if self.kind == "kong2021-fast6":
+            return len(KONG2021_FAST6)
+        if self.kind == "explicit":
+            return len(self.options.get("betas", []))
+        return None
+
+    def build(self, steps: int, training: NoiseSchedule | None = None) -> NoiseSchedule:
+        opts = dict(self.options)
+        if self.kind == "stride":
+            if training is None:
+                raise InputError("a 'stride' schedule needs a denoiser with a training schedule",
+                                 source=f"schedule '{self.name}'", field="kind", value=self.kind)
+            s = subsequence(training, steps, opts.get("stride", "uniform"))
+        elif self.kind == "explicit":
+            s = explicit(opts["betas"])
+            validate_betas(s.betas, source=f"schedule '{self.name}'", length=steps)
+        elif self.kind == "kong2021-fast6":
+            s = kong_fast6()
+            validate_betas(s.betas, source=f"schedule '{self.name}'", length=steps)
+        else:
+            s = BUILDERS[self.kind](steps, **opts)
+        return NoiseSchedule(s.betas, self.name, s.train_steps, {"kind": self.kind, **s.params})
+
+
+BUILDERS: dict[str, Callable[..., NoiseSchedule]] = {
+    "linear": linear, "quadratic": quadratic, "geometric": geometric, "cosine": cosine,
+}
+KINDS = sorted([*BUILDERS, "stride", "explicit", "kong2021-fast6"])
+KIND_OPTIONS = {"linear": {"beta_start", "beta_end"}, "quadratic": {"beta_start", "beta_end"},
+                "geometric": {"beta_start", "beta_end"}, "cosine": {"s", "max_beta"},
+                "stride": {"stride"}, "explicit": {"betas"}, "kong2021-fast6": set()}
+
+
+def make_spec(d: Mapping[str, Any], source: str = "config") -> ScheduleSpec:
+    """Parse one ``[[sweep.schedule]]`` table: ``name``, ``kind`` and the kind's options."""
+    d = dict(d)
+    kind = d.pop("kind", None)
+    name = d.pop("name", kind)
+    if kind not in KIND_OPTIONS:
+        raise InputError(f"unknown schedule kind; valid kinds: {', '.join(KINDS)}", source=source,
+                         field="sweep.schedule.kind", value=kind)
+    unknown = sorted(set(d) - KIND_OPTIONS[kind])
+    if unknown:
+        raise InputError(f"option not known for schedule kind '{kind}'; valid: "
+                         f"{sorted(KIND_OPTIONS[kind]) or 'none'}", source=source,
+                         field=f"sweep.schedule.{unknown[0]}", value=d[unknown[0]])
+    if kind == "explicit":
+        if "betas" not in d:
+            raise InputError("an explicit schedule needs 'betas'", source=source,
+                             field="sweep.schedule.betas")
+        try:
+            validate_betas(np.asarray(d["betas"], dtype=np.float64), source=source)
+        except (TypeError, ValueError) as e:
+            if isinstance(e, InputError):
+                raise
+            raise InputError("β list must hold numbers", source=source,
+                             field="sweep.schedule.betas", value=d["betas"]) from None
+    if kind == "stride" and d.get("stride", "uniform") not in ("uniform", "quadratic"):
+        raise InputError("stride must be 'uniform' or 'quadratic'", source=source,
+                         field="sweep.schedule.stride", value=d["stride"])
+    return ScheduleSpec(str(name), kind, d)
+
+
+def named_examples() -> dict[str, NoiseSchedule]:
+    """Schedules shown by ``vocobench schedules``."""
+    train = linear(DDPM_T)
+    return {
+        "linear (T=1000, Ho et al. 2020)": train,
+        "cosine (T=1000, Nichol & Dhariwal 2021)": cosine(DDPM_T),
+        "quadratic (T=50)": quadratic(50, 1e-4, 0.05),
+        "geometric (T=8)": geometric(8),
+        "kong2021-fast6 (Kong et al. 2021, from memory)": kong_fast6(),
+        "uniform stride 10 of linear T=1000 (Song et al. 2021)": subsequence(train, 10, "uniform"),
+        "quadratic stride 10 of linear T=1000 (Song et al. 2021)": subsequence(train, 10, "quadratic"),
+    }

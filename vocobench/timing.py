@@ -1,0 +1,78 @@
+"""Latency measurement, kept apart from scoring: warm-up, repeats, thread limits, device sync.
+
+Each timed call is bracketed by the plug-in's ``synchronize()`` (e.g. ``torch.cuda.synchronize``):
+GPU work is asynchronous, and timing without synchronisation measures only the kernel launches
+(common practice, no source). Times come from ``time.perf_counter``.
+"""
+from __future__ import annotations
+
+import contextlib
+import os
+import platform
+import time
+from dataclasses import dataclass
+from typing import Any, Callable, Iterator
+
+
+@dataclass(frozen=True)
+class Timing:
+    first_s: float              # the first call (lazy initialisation, compilation): reported apart
+    seconds: list[float]        # the timed repeats after warm-up
+    result: Any = None
+
+
+def time_call(fn: Callable[[], Any], *, warmup: int = 1, repeats: int = 3,
+              sync: Callable[[], None] | None = None) -> Timing:
+    """Call ``fn`` ``warmup`` times (the first one timed apart), then time ``repeats`` calls."""
+    sync = sync or (lambda: None)
+
+    def once() -> tuple[float, Any]:
+        sync()
+        t0 = time.perf_counter()
+        out = fn()
+        sync()
+        return time.perf_counter() - t0, out
+
+    first, result = once()
+    for _ in range(max(warmup - 1, 0)):
+        once()
+    times = []
+    for _ in range(repeats):
+        dt, result = once()
+        times.append(dt)
+    return Timing(first, times, result)
+
+
+@contextlib.contextmanager
+def thread_limit(n: int, plugin_obj: Any = None) -> Iterator[None]:
+    """Limit BLAS/OpenMP threads (threadpoolctl) and the plug-in's own (``set_threads``) to ``n``."""
+    from threadpoolctl import threadpool_limits
+
+    setter = getattr(plugin_obj, "set_threads", None)
+    if callable(setter):
+        setter(n)
+    with threadpool_limits(limits=n):
+        yield
+
+
+def hardware() -> dict[str, Any]:
+    """What the latency figures were measured on."""
+    info: dict[str, Any] = {"platform": platform.platform(), "machine": platform.machine(),
+                            "processor": _cpu_model(), "cpu_count": os.cpu_count(),
+                            "python": platform.python_version()}
+    try:
+        info["affinity"] = len(os.sched_getaffinity(0))
+    except AttributeError:
+        pass
+    return info
+
+
+def _cpu_model() -> str:
+    try:
+        with open("/proc/cpuinfo", encoding="utf-8") as f:
+            for line in f:
+                if line.startswith("model name"):
+                    return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor()
