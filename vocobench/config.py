@@ -15,7 +15,7 @@ from .errors import InputError
 from .schedules import ScheduleSpec, make_spec
 
 SECTIONS = {
-    "vocoder": {"target", "options", "version", "search_path"},
+    "vocoder": {"target", "options", "version", "version_file", "search_path"},
     "testset": {"path"},
     "sweep": {"steps", "samplers", "seeds", "schedule"},
     "sampler_options": None,      # free-form: one table per sampler name
@@ -46,6 +46,7 @@ class RunConfig:
     seeds: list[int] = field(default_factory=lambda: [0])
     options: dict[str, Any] = field(default_factory=dict)
     version: str | None = None
+    version_file: Path | None = None               # e.g. the checkpoint: its hash joins the cache keys
     search_path: list[Path] = field(default_factory=list)
     sampler_options: dict[str, dict[str, Any]] = field(default_factory=dict)
     metrics: list[str] | None = None               # None: the default metric set
@@ -171,6 +172,7 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
     return RunConfig(target=target, testset=testset, schedules=schedules, steps=steps,
                      samplers=samplers, seeds=seeds, options=dict(options),
                      version=_opt_str(voc.get("version"), "vocoder.version", bad),
+                     version_file=_file(voc.get("version_file"), "vocoder.version_file", base, bad),
                      search_path=search, sampler_options=sopts, metrics=metrics,
                      metric_options=mopts, length_mode=length_mode, length_tolerance_hops=tol,
                      timing=timing, output_dir=out_dir, save_audio=save, workers=workers,
@@ -194,6 +196,15 @@ def _table(v: Any, name: str, bad) -> Mapping[str, Any]:
     if not isinstance(v, Mapping):
         raise bad(name, "must be a table", v)
     return v
+
+
+def _file(v: Any, name: str, base: Path, bad) -> Path | None:
+    if v is None:
+        return None
+    p = base / _typed(v, name, str, bad)
+    if not p.is_file():
+        raise bad(name, "file not found", str(p))
+    return p
 
 
 def _opt_str(v: Any, name: str, bad) -> str | None:

@@ -88,6 +88,7 @@ class Setup:
                        "utterances": timed, "threads": cfg.timing.threads},
             "save_audio": cfg.save_audio, "hardware": {**hardware(), **_plugin_hw(self.plugin)},
             "packages": package_versions(), "decide": cfg.decide,
+            "job_keys": [j.key for j in self.jobs],
         }
 
 
@@ -145,9 +146,17 @@ def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet 
     """Validate everything and build the job list; writes nothing."""
     from .metrics import DEFAULT_METRICS, LengthPolicy, build_metrics
 
-    plugin = load_plugin(cfg.target, cfg.options, cfg.search_path)
+    try:
+        plugin = load_plugin(cfg.target, cfg.options, cfg.search_path)
+    except InputError as e:
+        if e.source:
+            raise
+        raise InputError(str(e), source=cfg.source) from None
     if cfg.version:
         plugin.version = cfg.version
+    if cfg.version_file:
+        digest = hashlib.sha256(cfg.version_file.read_bytes()).hexdigest()[:16]
+        plugin.version = f"{plugin.version or ''}+sha256:{digest}"
     if plugin.frontend.sample_rate != plugin.sample_rate:
         raise InputError("front-end sample rate differs from the vocoder's sample rate",
                          source=cfg.target, field="frontend.sample_rate",
@@ -314,35 +323,43 @@ def timing_utterances(setup: Setup) -> list[Utterance]:
     return list(utts if n == 0 else utts[:n])
 
 
-def run_timing(setup: Setup, journal: Journal, done: set[tuple], progress: Callable[[str], None]) -> None:
-    """Timing phase: alone, threads limited, warm-up then repeats, one seed."""
+def timing_plan(setup: Setup) -> list[tuple[Job, Utterance]]:
+    """Timing jobs: each configuration on the timing utterances, first seed (key = its item key)."""
+    chosen = {u.id for u in timing_utterances(setup)}
+    seed = setup.config.seeds[0]
+    return [(j, setup.testset.utterances[j.utt]) for j in setup.jobs
+            if j.seed == seed and setup.testset.utterances[j.utt].id in chosen]
+
+
+def run_timing(setup: Setup, jobs: list[tuple[Job, Utterance]], journal: Journal,
+               progress: Callable[[str], None]) -> None:
+    """Timing phase: alone, threads limited, warm-up then repeats."""
     cfg = setup.config
     worker = Worker(setup, cache_size=1)
-    seed = cfg.seeds[0]
-    index = {u.id: i for i, u in enumerate(setup.testset.utterances)}
     with thread_limit(cfg.timing.threads, setup.plugin.obj):
-        for u in timing_utterances(setup):
-            ui = index[u.id]
-            for pi, g in enumerate(setup.grid):
-                if (g.spec.name, g.sampler, g.steps, u.id) in done:
-                    continue
-                feats = worker.utterance(ui)["feats"]
-                fn = worker.synth(pi)
-                try:
-                    t = time_call(lambda: fn(feats, g.schedule, item_rng(seed, u)),
+        for job, u in jobs:
+            g = setup.grid[job.point]
+            feats = worker.utterance(job.utt)["feats"]
+            fn = worker.synth(job.point)
+            reset = getattr(setup.plugin.obj, "reset_peak_memory", None)
+            if callable(reset):
+                reset()
+            calls = cfg.timing.warmup + cfg.timing.repeats
+            try:
+                with _deadline(cfg.item_timeout_s and cfg.item_timeout_s * calls):
+                    t = time_call(lambda: fn(feats, g.schedule, item_rng(job.seed, u)),
                                   warmup=cfg.timing.warmup, repeats=cfg.timing.repeats,
                                   sync=setup.plugin.synchronize)
-                except Exception as e:
-                    progress(f"timing failed for {g.label} on {u.id}: {type(e).__name__}: {e}")
-                    continue
-                peak = _peak_memory(setup.plugin)
-                base = {"schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps, "nfe": g.nfe,
-                        "utt_id": u.id, "duration_s": u.duration_s, "peak_mem_bytes": peak}
-                rows = [(-1, t.first_s)] + list(enumerate(t.seconds))
-                for rep, secs in rows:
-                    journal.append({**base, "repeat": rep, "seconds": secs, "rtf": secs / u.duration_s,
-                                    "ms_per_nfe": 1e3 * secs / max(g.nfe, 1)})
-                progress(f"timed {g.label} on {u.id}")
+            except Exception as e:
+                progress(f"timing failed for {g.label} on {u.id}: {type(e).__name__}: {e}")
+                continue
+            base = {"key": job.key, "schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps,
+                    "nfe": g.nfe, "utt_id": u.id, "duration_s": u.duration_s,
+                    "peak_mem_bytes": _peak_memory(setup.plugin)}
+            for rep, secs in [(-1, t.first_s)] + list(enumerate(t.seconds)):
+                journal.append({**base, "repeat": rep, "seconds": secs, "rtf": secs / u.duration_s,
+                                "ms_per_nfe": 1e3 * secs / max(g.nfe, 1)})
+            progress(f"timed {g.label} on {u.id}")
 
 
 def _peak_memory(plugin: Plugin) -> int | None:
@@ -397,25 +414,44 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
         run_jobs(setup, todo, journal, bar, workers or cfg.workers, scheduler or cfg.scheduler)
         journal.close()
         tj = Journal(out / TIMING)
-        tdone = {(r["schedule"], r["sampler"], r["steps"], r["utt_id"]) for r in read_jsonl(out / TIMING)}
-        n_t = len(setup.grid) * len(timing_utterances(setup)) - len(tdone)
-        tbar = Progress(max(n_t, 0), progress, label="timing")
-        run_timing(setup, tj, tdone, lambda s: tbar.step(s) if s.startswith("timed") else _say(progress, s))
+        tdone = {r.get("key") for r in read_jsonl(out / TIMING)}
+        failed = {r.get("key") for r in read_jsonl(out / ITEMS) if r.get("status") == "failed"}
+        tjobs = [(j, u) for j, u in timing_plan(setup) if j.key not in tdone | failed]
+        tbar = Progress(len(tjobs), progress, label="timing")
+        run_timing(setup, tjobs, tj, lambda s: tbar.step(s) if s.startswith("timed") else _say(progress, s))
         tj.close()
+        changed = bool(todo or tjobs) or not (out / "summary.md").exists()
         write_tables(out)
-        if report:
+        if report and changed:
             render(out, echo=progress)
+        elif report:
+            _say(progress, "nothing new to compute; reports are up to date "
+                           f"(re-render with: vocobench report {out})")
     return out
 
 
 def run_jobs(setup: Setup, jobs: list[Job], journal: Journal, bar: Progress, workers: int,
              scheduler: str | None) -> None:
-    """Quality sweep, serial in this process (parallel backends plug in here)."""
-    worker = Worker(setup)
-    for job in jobs:
-        rec = worker.process(job)
+    """Quality sweep: serial in this process, or in ``workers`` local processes, or on the Dask
+    cluster at ``scheduler`` (:mod:`vocobench.parallel`); each record is journalled on arrival.
+
+    Every item is computed with one BLAS/OpenMP thread, serial or parallel: multi-threaded BLAS
+    changes the last bits of results, and audio hashes and scores must not depend on the worker
+    or core count. The timing phase uses ``[timing] threads``.
+    """
+    def finished(rec: dict[str, Any]) -> None:
         journal.append(rec)
         bar.step(f"{rec['utt_id']} {rec['schedule']}/{rec['sampler']}/{rec['steps']}")
+
+    if scheduler or workers != 1:
+        from .parallel import run_parallel
+
+        run_parallel(setup, jobs, finished, workers=workers, scheduler=scheduler)
+        return
+    worker = Worker(setup)
+    with thread_limit(1, setup.plugin.obj):
+        for job in jobs:
+            finished(worker.process(job))
 
 
 def render(out: Path, echo: bool = True) -> Any:

@@ -208,7 +208,12 @@ def load_run(run_dir: str | Path):
         raise InputError(f"unsupported run format; expected {FORMAT}", source=str(mpath),
                          field="format", value=manifest.get("format"))
     items = _dedupe(read_jsonl(run_dir / ITEMS))
-    timing = read_jsonl(run_dir / TIMING)
+    timing = _dedupe_timing(read_jsonl(run_dir / TIMING))
+    keys = manifest.get("job_keys")
+    if keys is not None:            # drop records of an earlier, different sweep in this directory
+        wanted = set(keys)
+        items = [r for r in items if r.get("key") in wanted]
+        timing = [r for r in timing if r.get("key") in wanted]
     return Run(run_dir, manifest, items_frame(items), pd.DataFrame(timing))
 
 
@@ -217,6 +222,13 @@ def _dedupe(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
     seen: dict[str, dict[str, Any]] = {}
     for r in records:
         seen[r.get("key", str(len(seen)))] = r
+    return list(seen.values())
+
+
+def _dedupe_timing(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    seen: dict[tuple, dict[str, Any]] = {}
+    for r in records:
+        seen[(r.get("key"), r["schedule"], r["sampler"], r["steps"], r["utt_id"], r["repeat"])] = r
     return list(seen.values())
 
 
