@@ -12,7 +12,8 @@ then also passed ``sampler=NAME``), ``version`` (str), ``nfe(schedule, sampler)`
 NoiseSchedule or a β list), ``conditioning`` (``"step"``: fractional 0-based training step, or
 ``"level"``: continuous noise level √ᾱ) and ``predict_noise(x_t, features, t)`` with ``x_t``
 ``(B, samples)``, ``features`` ``(B, n_mels, frames)`` and ``t`` ``(B,)``, returning ε̂ shaped like
-``x_t``. Optional: ``version``, ``synchronize()``.
+``x_t``. Optional: ``version``, ``synchronize()``, and ``sample(plan, features, n_samples, rng)``
+to run a :class:`~vocobench.samplers.StepPlan` itself (e.g. on a GPU, see ``torch_adapter``).
 
 Outputs may be any array-like, torch tensors included (converted without importing torch).
 """
@@ -216,12 +217,15 @@ class Plugin:
         den, fe = self.obj, self.frontend
         opts = dict(options or {})
         make_plan(sampler, _probe_schedule(), "level", None, opts)   # validate name and options
+        own_loop = _drives_plans(den)
 
         def synth(features: np.ndarray, schedule: NoiseSchedule, rng: np.random.Generator):
             plan = make_plan(sampler, schedule, self.conditioning or "step",
                              self.training_schedule, opts)
             feats = np.asarray(features)[None]
             n = fe.expected_samples(feats.shape[-1])  # type: ignore[union-attr]
+            if own_loop:
+                return den.sample(plan, feats, n, rng)[0]
             return run_plan(plan, den.predict_noise, feats, n, rng)[0]
 
         return synth
@@ -230,6 +234,17 @@ class Plugin:
         fn = getattr(self.obj, "synchronize", None)
         if callable(fn):
             fn()
+
+
+def _drives_plans(den: Any) -> bool:
+    """Whether a denoiser runs sampler plans itself: ``sample(plan, features, n_samples, rng)``."""
+    fn = getattr(den, "sample", None)
+    if not callable(fn):
+        return False
+    try:
+        return list(inspect.signature(fn).parameters)[:4] == ["plan", "features", "n_samples", "rng"]
+    except (TypeError, ValueError):
+        return False
 
 
 def _probe_schedule() -> NoiseSchedule:

@@ -80,7 +80,7 @@ class Setup:
             "config_source": cfg.source, "config": cfg.raw,
             "vocoder": self.plugin.describe(), "frontend": self.plugin.frontend.to_dict(),
             "frontend_fingerprint": self.plugin.frontend.fingerprint(),
-            "metrics": {m.name: m.variant() for m in self.metrics}, "columns": cols,
+            "metrics": {m.name: m.variant(self.plugin.sample_rate) for m in self.metrics}, "columns": cols,
             "length_policy": self.policy.describe(), "dataset": self.testset.describe(),
             "grid": [g.describe() for g in self.grid], "seeds": cfg.seeds,
             "sampler_options": cfg.sampler_options,
@@ -168,7 +168,7 @@ def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet 
     out = Path(out_dir) if out_dir else (cfg.output_dir or Path("reports") / "run")
     setup = Setup(cfg, plugin, ts, metrics, policy, grid, out)
     ids = {"vocoder": {k: v for k, v in plugin.describe().items()}, "version": __version__,
-           "metrics": {m.name: m.variant() for m in metrics}, "length": policy.describe(),
+           "metrics": {m.name: m.variant(plugin.sample_rate) for m in metrics}, "length": policy.describe(),
            "sampler_options": cfg.sampler_options}
     for ui, u in enumerate(ts.utterances):
         for pi, p in enumerate(grid):

@@ -19,8 +19,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 try:
     import torch
     from torch import Tensor, nn
@@ -100,6 +98,8 @@ class TorchAnalyticDenoiser(nn.Module):
         n = fe.hop_length
         self.register_buffer("basis", mdct_matrix(n, torch.float32))
         self._host = self._constants(fe, n)             # float64, CPU; see module docstring
+        levels = torch.as_tensor(self.training_schedule.noise_levels, dtype=torch.float64)
+        self._host["one_minus_level"] = 1 - levels      # 1 − √ᾱ at training steps 0..T−1
         self._cache: dict[tuple[str, torch.dtype], dict[str, Tensor]] = {}
 
     @staticmethod
@@ -114,8 +114,6 @@ class TorchAnalyticDenoiser(nn.Module):
         interp[rows, lo] = 1 - w
         interp[rows, lo + 1] += w
         win = torch.hann_window(fe.win_length, periodic=True, dtype=torch.float64)
-        ts = linear(1, 0.5)  # placeholder type for mypy; replaced below
-        del ts
         return {"mel": mel, "band": mel.sum(dim=1).clamp_min(1e-12),
                 "cover": mel.sum(dim=0).clamp_min(1e-12), "interp": interp,
                 "win_power": (win ** 2).sum().reshape(())}
@@ -123,10 +121,7 @@ class TorchAnalyticDenoiser(nn.Module):
     def _consts(self, device: torch.device, dtype: torch.dtype) -> dict[str, Tensor]:
         key = (str(device), dtype)
         if key not in self._cache:
-            host = dict(self._host)
-            levels = torch.as_tensor(self.training_schedule.noise_levels, dtype=torch.float64)
-            host["one_minus_level"] = 1 - levels                            # 1 − √ᾱ, step 0..T−1
-            self._cache[key] = {k: v.to(dtype).to(device) for k, v in host.items()}
+            self._cache[key] = {k: v.to(dtype).to(device) for k, v in self._host.items()}
         return self._cache[key]
 
     # -- the model ----------------------------------------------------------------------------
@@ -152,10 +147,10 @@ class TorchAnalyticDenoiser(nn.Module):
 
     def noise_variance(self, t: Tensor, dtype: torch.dtype) -> Tensor:
         """``1 − ᾱ`` for conditioning values ``t`` (fractional step, or √ᾱ), in ``dtype``."""
+        if self.conditioning == "level":     # in t's own precision first: 1 − √ᾱ cancels
+            level = t.to(torch.promote_types(t.dtype, dtype)).clamp(0.0, 1.0)
+            return ((1 - level) * (1 + level)).to(dtype)
         t = t.to(dtype)
-        if self.conditioning == "level":
-            level = t.clamp(0.0, 1.0)
-            return (1 - level) * (1 + level)
         d_table = self._consts(t.device, dtype)["one_minus_level"]
         T = d_table.shape[0]
         s = t.clamp(0.0, T - 1.0)                       # np.interp clamps outside the range too
@@ -188,4 +183,4 @@ def make(frontend: dict | None = None, conditioning: str = "step",
     return TorchAnalyticDenoiser(frontend, conditioning, training_steps)
 
 
-__all__ = ["TorchAnalyticDenoiser", "mdct_matrix", "mdct", "imdct", "make", "np"]
+__all__ = ["TorchAnalyticDenoiser", "mdct_matrix", "mdct", "imdct", "make"]
