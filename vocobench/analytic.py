@@ -86,7 +86,12 @@ class AnalyticDenoiser:
         mel = fe.to_linear_mel(features)                                    # (..., n_mels, F)
         density = mel / np.maximum(m.sum(axis=1), 1e-12)[:, None]          # per-bin |X|^p
         cover = m.sum(axis=0)                                               # (n_fft/2+1,)
-        spec = np.einsum("jf,...jt->...ft", m, density) / np.maximum(cover, 1e-12)[:, None]
+        covered = np.flatnonzero(cover > 1e-3 * cover.max())
+        spec = np.einsum("jf,...jt->...ft", m, density)[..., covered, :] / cover[covered, None]
+        # bins outside [fmin, fmax] take the nearest covered bin's level (flat extension), so
+        # the prior still fills the band the mel-spectrogram does not describe
+        nearest = covered[np.clip(np.searchsorted(covered, np.arange(cover.size)), 0, covered.size - 1)]
+        spec = spec[..., np.searchsorted(covered, nearest), :]
         power = spec ** (2.0 / fe.power) / self._win_power                  # white-noise variance
         f_stft = np.arange(m.shape[1]) * fe.sample_rate / fe.n_fft
         n = fe.hop_length

@@ -165,6 +165,7 @@ def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet 
     metrics = build_metrics(list(cfg.metrics or DEFAULT_METRICS), cfg.metric_options, source=cfg.source)
     policy = LengthPolicy(mode=cfg.length_mode, tolerance_hops=cfg.length_tolerance_hops)
     grid = build_grid(cfg, plugin)
+    _check_decide(cfg, metrics)
     out = Path(out_dir) if out_dir else (cfg.output_dir or Path("reports") / "run")
     setup = Setup(cfg, plugin, ts, metrics, policy, grid, out)
     ids = {"vocoder": {k: v for k, v in plugin.describe().items()}, "version": __version__,
@@ -176,6 +177,21 @@ def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet 
             for seed in cfg.seeds:
                 setup.jobs.append(Job(job_key({**ids, **opts}, p, u, seed), ui, pi, seed))
     return setup
+
+
+def _check_decide(cfg: RunConfig, metrics: list[Any]) -> None:
+    """Validate ``[decide]`` now, so a typo there cannot surface only after a long sweep."""
+    try:
+        from .report.options import ReportOptions
+    except ImportError:
+        return
+    opts = ReportOptions.from_mapping(cfg.decide, source=cfg.source)
+    columns = {c.name for m in metrics for c in m.columns}
+    named = [*(opts.metrics or ()), *opts.margins, *([opts.primary] if opts.primary else [])]
+    for name in named:
+        if name not in columns:
+            raise InputError(f"not a metric column of this run; valid: {', '.join(sorted(columns))}",
+                             source=cfg.source, field="decide", value=name)
 
 
 def item_rng(seed: int, utt: Utterance) -> np.random.Generator:

@@ -269,7 +269,8 @@ def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence
                                "latency_source": "none"}
         src = timing[tlab == c.label] if tlab is not None else timing.iloc[0:0]
         if len(src):
-            rep = pd.to_numeric(src.get("repeat"), errors="coerce")
+            rep = pd.to_numeric(src["repeat"], errors="coerce") if "repeat" in src.columns \
+                else pd.Series(0, index=src.index)
             timed, first = src[rep >= 0], src[rep == -1]
             rtf = pd.to_numeric(timed.get("rtf"), errors="coerce").dropna().to_numpy()
             if rtf.size:
@@ -326,7 +327,8 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
     ----------
     run : a :class:`vocobench.store.Run` (``manifest``, ``items``, ``timing``).
     reference : configuration compared against; default :func:`default_reference`.
-    columns : metric columns to analyse; default every column of ``manifest["columns"]``.
+    columns : metric columns to analyse; default every column of ``manifest["columns"]`` that has
+        a boolean ``higher_is_better`` (others, such as counts, are informational).
     settings : bootstrap settings (recorded in the result).
 
     The long ``metrics`` table has, per (config, column): ``n`` (utterances with a value),
@@ -344,7 +346,10 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
     if missing:
         raise InputError("items lack required fields", source="items.jsonl", field=missing[0])
     all_cols = dict(manifest.get("columns") or {})
-    names = list(all_cols) if columns is None else list(columns)
+    # Default: the quality columns, i.e. those with a direction; a column whose higher_is_better
+    # is not a boolean (e.g. a frame count) is informational and left out.
+    names = [c for c in all_cols if isinstance((all_cols[c] or {}).get("higher_is_better"), bool)] \
+        if columns is None else list(columns)
     for col in names:
         if col not in all_cols:
             raise InputError(f"unknown metric column; the run has: {', '.join(all_cols) or 'none'}",

@@ -114,14 +114,19 @@ class TorchAnalyticDenoiser(nn.Module):
         interp[rows, lo] = 1 - w
         interp[rows, lo + 1] += w
         win = torch.hann_window(fe.win_length, periodic=True, dtype=torch.float64)
+        cover = mel.sum(dim=0)
+        covered = torch.nonzero(cover > 1e-3 * cover.max()).flatten()
+        # bins outside [fmin, fmax] take the next covered bin's level (flat extension)
+        pos = torch.searchsorted(covered, torch.arange(cover.numel())).clamp_max(covered.numel() - 1)
         return {"mel": mel, "band": mel.sum(dim=1).clamp_min(1e-12),
-                "cover": mel.sum(dim=0).clamp_min(1e-12), "interp": interp,
-                "win_power": (win ** 2).sum().reshape(())}
+                "cover": cover.clamp_min(1e-12), "interp": interp,
+                "win_power": (win ** 2).sum().reshape(()), "nearest": covered[pos]}
 
     def _consts(self, device: torch.device, dtype: torch.dtype) -> dict[str, Tensor]:
         key = (str(device), dtype)
         if key not in self._cache:
-            self._cache[key] = {k: v.to(dtype).to(device) for k, v in self._host.items()}
+            self._cache[key] = {k: (v if k == "nearest" else v.to(dtype)).to(device)
+                                for k, v in self._host.items()}
         return self._cache[key]
 
     # -- the model ----------------------------------------------------------------------------
@@ -139,6 +144,7 @@ class TorchAnalyticDenoiser(nn.Module):
             mel = (mel - fe.floor).clamp_min(0.0)
         density = mel / c["band"][:, None]                                  # per-bin |X|^p
         spec = torch.einsum("jf,...jt->...ft", c["mel"], density) / c["cover"][:, None]
+        spec = spec[..., c["nearest"], :]
         power = spec ** (2.0 / fe.power) / c["win_power"]                  # white-noise variance
         p = (c["interp"] @ power).transpose(-1, -2)                          # (..., F, n)
         n_frames = p.shape[-2]

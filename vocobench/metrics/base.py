@@ -10,7 +10,7 @@ from __future__ import annotations
 import importlib
 import math
 from abc import ABC, abstractmethod
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 from importlib import metadata
 from typing import Any, ClassVar, Mapping, Sequence
 
@@ -36,6 +36,10 @@ REGISTRY: dict[str, str] = {
 }
 
 DEFAULT_METRICS: tuple[str, ...] = ("mcd", "pesq_wb", "stoi")
+
+# Config keys named in InputError messages (the [metrics] table of the run config).
+NAMES_FIELD = "metrics.use"
+OPTIONS_FIELD = "metrics.options"
 
 
 @dataclass(frozen=True)
@@ -77,7 +81,8 @@ class Option:
                 raise bad("must be an integer")
             value = int(value)
         elif self.kind == "float":
-            if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+            number = (int, float, np.integer, np.floating)
+            if isinstance(value, bool) or not isinstance(value, number):
                 raise bad("must be a number")
             value = float(value)
             if not math.isfinite(value):
@@ -119,6 +124,7 @@ class Prepared:
     length: int
     data: Any = None
     unavailable: str | None = None     # reason the reference cannot be scored at all
+    reference: np.ndarray | None = field(default=None, repr=False)   # the array itself, no copy
 
 
 class Metric(ABC):
@@ -138,11 +144,12 @@ class Metric(ABC):
             valid = ", ".join(sorted(self.options_spec)) or "(none)"
             raise InputError(f"unknown option '{unknown[0]}' for metric '{self.name}'; "
                              f"valid options: {valid}", source=source,
-                             field=f"metrics.{self.name}.{unknown[0]}")
+                             field=f"{OPTIONS_FIELD}.{self.name}.{unknown[0]}")
         self.options: dict[str, Any] = {}
         for key, spec in self.options_spec.items():
             raw = options.get(key, spec.default)
-            self.options[key] = spec.parse(raw, source=source, field=f"metrics.{self.name}.{key}")
+            where = f"{OPTIONS_FIELD}.{self.name}.{key}"
+            self.options[key] = spec.parse(raw, source=source, field=where)
         self._check_options(source)
 
     def _check_options(self, source: str | None) -> None:
@@ -189,7 +196,7 @@ class Metric(ABC):
         """Reference-side analysis, done once per utterance and reused for every estimate."""
         ref = _as_signal(reference, "reference")
         sr = _as_rate(sr)
-        state = Prepared(self.name, sr, ref.size)
+        state = Prepared(self.name, sr, ref.size, reference=ref)
         if not np.all(np.isfinite(ref)):
             state.unavailable = "reference contains NaN or infinite samples"
             return state
@@ -200,11 +207,17 @@ class Metric(ABC):
         return state
 
     def score(self, state: Prepared, estimate: np.ndarray, sr: int) -> dict[str, float]:
-        """Score ``estimate`` against the prepared reference. Raises MetricUnavailable."""
+        """Score ``estimate`` against the prepared reference. Raises MetricUnavailable.
+
+        An estimate shorter than the prepared reference (the "trim" length policy) is scored
+        against the reference cut to its length, prepared again for this call.
+        """
         est = _as_signal(estimate, "estimate")
         sr = _as_rate(sr)
         if not isinstance(state, Prepared) or state.metric != self.name:
             raise ValueError(f"state was not prepared by metric '{self.name}'")
+        if sr == state.sample_rate and est.size < state.length and state.reference is not None:
+            state = self.prepare(state.reference[: est.size], sr)
         if sr != state.sample_rate or est.size != state.length:
             raise ValueError(f"estimate ({est.size} samples at {sr} Hz) does not match the "
                              f"prepared reference ({state.length} at {state.sample_rate} Hz); "
@@ -244,26 +257,27 @@ def build_metrics(names: Sequence[str] = DEFAULT_METRICS,
     """
     valid = ", ".join(REGISTRY)
     if isinstance(names, str) or not isinstance(names, Sequence):
-        raise InputError("must be a list of metric names", source=source, field="metrics",
+        raise InputError("must be a list of metric names", source=source, field=NAMES_FIELD,
                          value=names)
     if not names:
         raise InputError(f"no metrics selected; valid names: {valid}", source=source,
-                         field="metrics")
+                         field=NAMES_FIELD)
     options = dict(options or {})
-    for key in list(names) + list(options):
-        if key not in REGISTRY:
-            raise InputError(f"unknown metric '{key}'; valid names: {valid}", source=source,
-                             field="metrics", value=key)
+    for keys, where in ((names, NAMES_FIELD), (options, OPTIONS_FIELD)):
+        for key in keys:
+            if key not in REGISTRY:
+                raise InputError(f"unknown metric '{key}'; valid names: {valid}", source=source,
+                                 field=where, value=key)
     seen = set()
     for n in names:
         if n in seen:
-            raise InputError(f"metric '{n}' is listed twice", source=source, field="metrics",
+            raise InputError(f"metric '{n}' is listed twice", source=source, field=NAMES_FIELD,
                              value=n)
         seen.add(n)
     for key, opts in options.items():
         if not isinstance(opts, Mapping):
             raise InputError("metric options must be a table of name = value", source=source,
-                             field=f"metrics.{key}", value=opts)
+                             field=f"{OPTIONS_FIELD}.{key}", value=opts)
         if key not in seen:
             metric_class(key)(opts, source=source)
     return [metric_class(n)(options.get(n), source=source) for n in names]

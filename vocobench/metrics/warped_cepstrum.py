@@ -100,8 +100,8 @@ class MelCepstralAnalyzer:
         cos = np.cos(np.arange(2 * self.order + 1)[:, None] * beta[None, :])   # (2M+1, K)
         self._u = u
         self._cos = cos
-        self._basis = 2.0 * cos[: self.order + 1]                                # log|H|² = c @ basis
-        self._p = cos @ u                                                        # (1/2π)∫cos(jβ)dω
+        self._basis = 2.0 * cos[: self.order + 1]          # log|H|² = c @ basis
+        self._p = cos @ u                                  # (1/2π)∫cos(jβ)dω
         dbeta = (1.0 - self.alpha ** 2) / (1.0 - 2.0 * self.alpha * np.cos(omega) + self.alpha ** 2)
         proj = 2.0 * cos[: self.order + 1] * (u * dbeta)[None, :]
         proj[0] *= 0.5

@@ -1,0 +1,188 @@
+"""The recommendation: plain words with the numbers behind them.
+
+(a) Cheapest configuration no worse than the reference: the lowest median RTF among the
+    configurations whose one-sided bound (at the chosen confidence) of the paired difference to
+    the reference lies inside the margin on every chosen metric, direction-aware — the lower
+    bound above ``−margin`` where higher is better, the upper bound below ``+margin`` where lower
+    is better. This is the confidence-interval form of a non-inferiority test (e.g. Wellek 2010,
+    "Testing Statistical Hypotheses of Equivalence and Noninferiority", 2nd ed.). The bounds are
+    per configuration, not adjusted for the number of configurations screened.
+(b) Best configuration within an RTF budget on a primary metric: the best mean among those with
+    median RTF ≤ budget.
+
+A configuration with failed items is never recommended. Ties in cost go to fewer NFE, then to
+grid order; ties in quality go to lower median RTF.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+from ..stats import RunStatistics
+from .options import ReportOptions
+from .table import fmt, fmt_p, interval
+
+CAUTION = ("Objective scores are no substitute for listening tests: listen to the outputs "
+           "(listening page) before deciding.")
+
+
+@dataclass
+class Recommendation:
+    """Outcome of the decision rules; ``text`` is the plain-words version."""
+
+    reference: str
+    metrics: list[str]
+    margins: dict[str, tuple[float, str]]
+    checks: pd.DataFrame                 # config × metric: bound, margin, passed
+    cheapest: str | None
+    primary: str | None
+    rtf_budget: float | None
+    best_in_budget: str | None
+    excluded: dict[str, int] = field(default_factory=dict)   # config → failed items
+    text: str = ""
+
+    @property
+    def recommended(self) -> list[str]:
+        return list(dict.fromkeys(c for c in (self.cheapest, self.best_in_budget) if c))
+
+
+def _unit(st: RunStatistics, col: str) -> str:
+    u = st.columns[col].get("unit")
+    return f" {u}" if u else ""
+
+
+def recommend(st: RunStatistics, table: pd.DataFrame, opts: ReportOptions) -> Recommendation:
+    """Apply rules (a) and (b) of the module docstring to a built table."""
+    metrics = list(opts.metrics or st.columns)
+    primary = opts.primary or metrics[0]
+    ref = st.reference.label
+    t = table.set_index("config")
+    order = {c: i for i, c in enumerate(t.index)}
+    margins = {m: opts.margin_for(m, t.loc[ref, f"{m}_mean"]) for m in metrics}
+    checks, passed = [], {}
+    for c in t.index:
+        ok_all = True
+        for m in metrics:
+            hib = bool(st.columns[m]["higher_is_better"])
+            margin = margins[m][0]
+            if c == ref:
+                bound, ok = 0.0, math.isfinite(float(t.loc[c, f"{m}_mean"]))
+            else:
+                bound = float(t.loc[c, f"{m}_diff_bound"])
+                ok = math.isfinite(bound) and (bound > -margin if hib else bound < margin)
+            checks.append({"config": c, "column": m, "bound": bound, "margin": margin, "passed": ok})
+            ok_all &= ok
+        passed[c] = ok_all
+    excluded = {c: int(t.loc[c, "failed"]) for c in t.index if t.loc[c, "failed"] > 0}
+
+    def cost(c: str) -> tuple[float, int, int]:
+        r = float(t.loc[c, "rtf_median"])
+        return (r if math.isfinite(r) else math.inf, int(t.loc[c, "nfe"]), order[c])
+
+    cands = [c for c in t.index if passed[c] and c not in excluded]
+    cheapest = min(cands, key=cost) if cands else None
+
+    best = None
+    hib_p = bool(st.columns[primary]["higher_is_better"])
+    if opts.rtf_budget is not None:
+        within = [c for c in t.index if c not in excluded
+                  and float(t.loc[c, "rtf_median"]) <= opts.rtf_budget
+                  and math.isfinite(float(t.loc[c, f"{primary}_mean"]))]
+        if within:
+            best = min(within, key=lambda c: ((-1 if hib_p else 1) * float(t.loc[c, f"{primary}_mean"]),)
+                       + cost(c))
+    rec = Recommendation(reference=ref, metrics=metrics, margins=margins,
+                         checks=pd.DataFrame(checks), cheapest=cheapest, primary=primary,
+                         rtf_budget=opts.rtf_budget, best_in_budget=best, excluded=excluded)
+    rec.text = _words(st, t, rec, opts)
+    return rec
+
+
+def _how(how: str, opts: ReportOptions) -> str:
+    return "set" if how == "set" else f"default: {100 * opts.margin_rel:g} % of the reference mean"
+
+
+def _words(st: RunStatistics, t: pd.DataFrame, rec: Recommendation, opts: ReportOptions) -> str:
+    s = st.settings
+    conf = f"{100 * s.confidence:g} %"
+    ref = rec.reference
+    n_utt = int(max(t.loc[ref, f"{m}_n"] for m in rec.metrics))
+    lines = [f"Reference configuration: {ref}"
+             + (" (most steps)" if opts.reference is None else " (chosen)")
+             + f", median RTF {fmt(t.loc[ref, 'rtf_median'], 3)}.",
+             f"Intervals: bootstrap ({s.method}, {s.n_resamples} resamples, seed {s.seed}) over "
+             f"{n_utt} utterances, seeds averaged within each utterance; {conf} two-sided "
+             f"intervals, {conf} one-sided bounds for non-inferiority.",
+             "Margins: " + "; ".join(f"{m} {fmt(v, 3)}{_unit(st, m)} ({_how(how, opts)})"
+                                     for m, (v, how) in rec.margins.items()) + ".", ""]
+    if not any(math.isfinite(float(x)) for x in t["rtf_median"]):
+        lines += ["No latency was measured: costs fall back to NFE.", ""]
+    # (a)
+    if rec.cheapest is None:
+        lines.append("(a) No configuration without failures is non-inferior to the reference on "
+                     + ", ".join(rec.metrics) + " within the margins.")
+    else:
+        c = rec.cheapest
+        head = f"(a) Cheapest configuration no worse than the reference: {c}"
+        if c == ref:
+            head += " — the reference itself; no cheaper configuration stays within the margins."
+        else:
+            speed = float(t.loc[ref, "rtf_median"]) / float(t.loc[c, "rtf_median"]) \
+                if float(t.loc[c, "rtf_median"]) > 0 else math.nan
+            head += (f" — median RTF {fmt(t.loc[c, 'rtf_median'], 3)} against "
+                     f"{fmt(t.loc[ref, 'rtf_median'], 3)}"
+                     + (f" ({speed:.3g}× faster)" if math.isfinite(speed) else "")
+                     + f", NFE {int(t.loc[c, 'nfe'])} against {int(t.loc[ref, 'nfe'])}.")
+        lines.append(head)
+        if c != ref:
+            for m in rec.metrics:
+                hib = bool(st.columns[m]["higher_is_better"])
+                margin = rec.margins[m][0]
+                side = "lower" if hib else "upper"
+                rel = "above" if hib else "below"
+                lim = -margin if hib else margin
+                r = t.loc[c]
+                diff = interval(r[m + "_diff"], r[m + "_diff_low"], r[m + "_diff_high"], sign=True, sig=3)
+                lines.append(f"    {m}: difference {diff}{_unit(st, m)}; one-sided {conf} {side} bound "
+                             f"{fmt(r[m + '_diff_bound'], 3, sign=True)}, {rel} the margin {fmt(lim, 3, sign=True)}"
+                             f"; Holm-adjusted Wilcoxon p {fmt_p(r[m + '_p_holm'])}.")
+        cheaper_fail = [x for x in t.index if x not in rec.excluded and x != c
+                        and float(t.loc[x, "rtf_median"]) < float(t.loc[c, "rtf_median"])]
+        if cheaper_fail:
+            ch = rec.checks.set_index(["config", "column"])
+            why = []
+            for x in cheaper_fail[:4]:
+                bad = [m for m in rec.metrics if not ch.loc[(x, m), "passed"]]
+                parts = [m + " bound " + fmt(ch.loc[(x, m), "bound"], 3, sign=True) for m in bad]
+                why.append(f"{x} ({', '.join(parts)})")
+            lines.append("    Cheaper but outside the margins: " + "; ".join(why)
+                         + (" …" if len(cheaper_fail) > 4 else "") + ".")
+    # (b)
+    p = rec.primary
+    if rec.rtf_budget is None:
+        lines.append("(b) No RTF budget set; set decide.rtf_budget for the best configuration within it.")
+    elif rec.best_in_budget is None:
+        lines.append(f"(b) No configuration without failures has median RTF ≤ {fmt(rec.rtf_budget, 3)}.")
+    else:
+        b = rec.best_in_budget
+        word = "highest" if st.columns[p]["higher_is_better"] else "lowest"
+        r = t.loc[b]
+        mean = interval(r[p + "_mean"], r[p + "_ci_low"], r[p + "_ci_high"])
+        line = (f"(b) Best {p} within RTF ≤ {fmt(rec.rtf_budget, 3)} ({word} mean): {b} — {p} "
+                f"{mean}{_unit(st, p)}, median RTF {fmt(r['rtf_median'], 3)}")
+        if b != ref:
+            diff = interval(r[p + "_diff"], r[p + "_diff_low"], r[p + "_diff_high"], sign=True, sig=3)
+            line += (f"; difference from the reference {diff}"
+                     f" (Holm-adjusted Wilcoxon p {fmt_p(r[p + '_p_holm'])})")
+        lines.append(line + ".")
+    if rec.excluded:
+        lines += ["", "Never recommended because some items failed: "
+                  + ", ".join(f"{c} ({n} failed)" for c, n in rec.excluded.items()) + "."]
+    sweep = [c for c in t.index if t.loc[c, "latency_source"] == "sweep"]
+    if sweep:
+        lines.append("Latency from the sweep's own timings (possibly contended) for: "
+                     + ", ".join(sweep) + ".")
+    lines += ["", CAUTION]
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,259 @@
+"""`render_report`: a stored run → summary, tables, recommendation, plots, listening page.
+
+Nothing is re-synthesised or re-scored: everything comes from ``manifest.json``,
+``items.jsonl`` and ``timing.jsonl``. Files written::
+
+    RUN_DIR/summary.md
+    RUN_DIR/report/table.md, table.csv, table.tex, recommendation.md,
+                   worst_utterances.md, worst_utterances.csv,
+                   plots/*.png|svg, listening.html, audio/*.wav, spectra/*.png
+"""
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from ..stats import BootstrapSettings, Config, RunStatistics, configurations, summarise
+from ..store import load_run, write_atomic
+from .decide import CAUTION, Recommendation, recommend
+from .listening import default_choice, fewest_steps, write_listening_page
+from .options import ReportOptions
+from .table import (build_table, display_table, md_cell, to_latex, to_markdown, to_text,
+                    worst_utterances)
+
+TABLE_NOTES = ("↑ higher is better, ↓ lower is better. Δ = configuration − reference, from "
+               "per-utterance paired differences. Holm p: Wilcoxon signed-rank test, Holm-adjusted "
+               "across the configurations compared (per metric). Latency from the timing phase "
+               "(first call excluded; shown apart). Pareto front: over median RTF and the metric's "
+               "mean; configurations with failed items are left off it.")
+
+
+@dataclass
+class ReportResult:
+    """What :func:`render_report` wrote and decided."""
+
+    paths: dict[str, Path]                # name → file ("plots" entries are listed in `plots`)
+    table: pd.DataFrame                   # raw numbers, one row per configuration
+    recommendation: str                   # plain-words text
+    decision: Recommendation | None = None
+    stats: RunStatistics | None = None
+    plots: list[Path] = field(default_factory=list)
+    page_files: list[Path] = field(default_factory=list)
+
+    @property
+    def written(self) -> list[Path]:
+        return [*self.paths.values(), *self.plots, *self.page_files]
+
+
+def options_for(run: Any, options: ReportOptions | None) -> ReportOptions:
+    if options is not None:
+        return options
+    return ReportOptions.from_mapping(run.manifest.get("decide"),
+                                      source=str(Path(run.path) / "manifest.json"))
+
+
+def check_options(opts: ReportOptions, run: Any) -> Config | None:
+    """Check names in the options against the run; returns the parsed reference (or None)."""
+    cols = dict(run.manifest.get("columns") or {})
+    src = opts.source
+
+    def unknown_col(key: str, name: str) -> InputError:
+        return InputError(f"unknown metric column; the run has: {', '.join(cols) or 'none'}",
+                          source=src, field=f"decide.{key}", value=name)
+
+    def check(key: str, name: str) -> None:
+        if name not in cols:
+            raise unknown_col(key, name)
+        if not isinstance((cols[name] or {}).get("higher_is_better"), bool):
+            raise InputError("column has no direction (higher_is_better), so it cannot be "
+                             "compared", source=src, field=f"decide.{key}", value=name)
+
+    for m in opts.metrics or ():
+        check("metrics", m)
+    if opts.primary is not None:
+        check("primary", opts.primary)
+    for m in opts.margins:
+        check(f"margins.{m}", m)
+    ref = Config.parse(opts.reference, source=src, field="decide.reference") if opts.reference else None
+    for lab in opts.listen or ():
+        Config.parse(lab, source=src, field="decide.listen")
+    return ref
+
+
+def render_report(run_dir: str | Path, options: ReportOptions | None = None,
+                  echo: bool = True) -> ReportResult:
+    """Compute statistics of a stored run and write every report file.
+
+    Parameters
+    ----------
+    run_dir : a run directory (``vocobench-run/1``).
+    options : decision options; default: the run's ``[decide]`` table (manifest ``decide``).
+    echo : print the terminal table, the recommendation and the paths written.
+    """
+    run = load_run(run_dir)
+    run_dir = Path(run.path)
+    opts = options_for(run, options)
+    ref = check_options(opts, run)
+    settings = BootstrapSettings(opts.confidence, opts.resamples, opts.seed, opts.method)
+    if ref is not None and len(run.items):
+        have = [c.label for c in configurations(run.manifest, run.items)]
+        if ref.label not in have:
+            raise InputError("configuration not in this run; valid: " + ", ".join(have),
+                             source=opts.source, field="decide.reference", value=opts.reference)
+    st = summarise(run, reference=ref, settings=settings)
+    labels = {c.label for c in st.configs}
+    for lab in opts.listen or ():
+        if Config.parse(lab).label not in labels:
+            raise InputError("configuration not in this run; valid: " + ", ".join(sorted(labels)),
+                             source=opts.source, field="decide.listen", value=lab)
+    if opts.metrics is None:                      # default: every column that has values
+        with_values = tuple(c for c in st.columns
+                            if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
+        opts = opts.replace(metrics=with_values) if with_values else opts
+    table = build_table(st)
+    header, rows = display_table(table, st)
+    rep = run_dir / "report"
+    rep.mkdir(parents=True, exist_ok=True)
+    paths: dict[str, Path] = {}
+    title = "Quality against latency"
+    md_table = to_markdown(header, rows)
+    _put(paths, "table.md", rep / "table.md", f"# {title}\n\n{md_table}\n{md_cell(TABLE_NOTES)}\n")
+    _put(paths, "table.csv", rep / "table.csv", table.to_csv(index=False))
+    _put(paths, "table.tex", rep / "table.tex",
+         to_latex(header, rows, caption=f"{title} ({run_dir.name})"))
+    worst = worst_utterances(st, opts.worst)
+    _put(paths, "worst_utterances.csv", rep / "worst_utterances.csv", worst.to_csv(index=False))
+    _put(paths, "worst_utterances.md", rep / "worst_utterances.md", _worst_md(worst, st, opts.worst))
+
+    if st.columns and opts.metrics:
+        decision = recommend(st, table, opts)
+        text = decision.text
+    else:
+        decision = None
+        text = "The run has no metric values; only latency is reported.\n\n" + CAUTION + "\n"
+    _put(paths, "recommendation.md", rep / "recommendation.md", f"# Recommendation\n\n{_md_text(text)}")
+
+    plots = []
+    if opts.plots and st.columns:
+        from .plots import write_plots
+
+        plots = write_plots(st, table, rep / "plots")
+    page_files = []
+    if opts.page:
+        chosen = [Config.parse(x).label for x in opts.listen] if opts.listen else \
+            default_choice(st, decision.recommended if decision else [])
+        page_files = write_listening_page(run, st, chosen, rep, limit=opts.listen_limit,
+                                          roles=_roles(st, decision))
+        paths["listening.html"] = page_files[-1]
+        page_files = page_files[:-1]
+    summary = _summary(run, st, opts, md_table, text, paths, plots)
+    _put(paths, "summary.md", run_dir / "summary.md", summary)
+    result = ReportResult(paths=paths, table=table, recommendation=text, decision=decision,
+                          stats=st, plots=plots, page_files=page_files)
+    if echo:
+        print(f"{title} — {run_dir}")
+        print(to_text(header, rows))
+        print(text)
+        print("Written:")
+        for p in [*paths.values(), *( [rep / "plots"] if plots else [])]:
+            print(f"  {p}")
+    return result
+
+
+def _roles(st: RunStatistics, decision: Recommendation | None) -> dict[str, str]:
+    roles: dict[str, list[str]] = {}
+    pairs = [(st.reference.label, "reference configuration")]
+    if decision is not None:
+        pairs += [(decision.cheapest, "cheapest within the margins"),
+                  (decision.best_in_budget, "best within the RTF budget")]
+    pairs.append((fewest_steps(st), "fewest steps"))
+    for label, role in pairs:
+        if label:
+            roles.setdefault(label, []).append(role)
+    return {k: "; ".join(v) for k, v in roles.items()}
+
+
+def _put(paths: dict[str, Path], name: str, path: Path, text: str) -> None:
+    write_atomic(path, text)
+    paths[name] = path
+
+
+def _md_text(text: str) -> str:
+    """Plain recommendation text as Markdown: top-level lines as paragraphs, indented lines as
+    list items under them; everything HTML-escaped (Markdown renderers pass raw HTML)."""
+    out: list[str] = []
+    for line in text.splitlines():
+        if not line.strip():
+            continue
+        if line.startswith("    "):
+            out.append("- " + md_cell(line.strip()))
+        else:
+            out += ["", md_cell(line)]
+    return "\n".join(out).lstrip("\n") + "\n"
+
+
+def _worst_md(worst: pd.DataFrame, st: RunStatistics, n: int) -> str:
+    out = ["# Worst utterances per configuration\n",
+           f"The {n} worst utterances (seeds averaged) per configuration and metric.\n"]
+    for col in st.columns:
+        out.append(f"## {md_cell(col)}\n")
+        out.append("| Configuration | " + " | ".join(f"#{i}" for i in range(1, n + 1)) + " |")
+        out.append("|:---|" + "|".join([":---"] * n) + "|")
+        sub = worst[worst["column"] == col]
+        for c in st.configs:
+            s = sub[sub["config"] == c.label]
+            cells = [f"{md_cell(u)} ({v:.4g})" for u, v in zip(s["utt_id"], s["value"])]
+            cells += ["–"] * (n - len(cells))
+            out.append(f"| {md_cell(c.label)} | " + " | ".join(cells) + " |")
+        out.append("")
+    return "\n".join(out) + "\n"
+
+
+def _variant(v: Any) -> str:
+    if isinstance(v, Mapping):
+        return ", ".join(f"{k}={json.dumps(x, sort_keys=True, default=str)}" for k, x in v.items())
+    return json.dumps(v, sort_keys=True, default=str)
+
+
+def _summary(run: Any, st: RunStatistics, opts: ReportOptions, md_table: str, text: str,
+             paths: Mapping[str, Path], plots: list[Path]) -> str:
+    m = run.manifest
+    voc = m.get("vocoder") or {}
+    ds = m.get("dataset") or {}
+    tm = m.get("timing") or {}
+    e = md_cell
+    lines = [f"# Quality against latency — {e(Path(run.path).name)}", ""]
+    if isinstance(voc, Mapping) and voc:
+        bits = [str(voc.get(k)) for k in ("target", "kind", "version") if voc.get(k)]
+        lines.append(f"- Vocoder: {e(' · '.join(bits))}")
+    if m.get("created_utc"):
+        lines.append(f"- Created: {e(m['created_utc'])} (vocobench {e(m.get('vocobench_version', '?'))})")
+    n_utt = len(ds.get("utterances") or []) or ds.get("n_utterances")
+    lines.append(f"- Test set: {e(n_utt)} utterances, fingerprint {e(ds.get('fingerprint', '?'))}")
+    lines.append(f"- Seeds: {e(', '.join(str(s) for s in m.get('seeds') or []) or '?')}")
+    if tm:
+        lines.append(f"- Timing: warm-up {e(tm.get('warmup'))}, repeats {e(tm.get('repeats'))}, "
+                     f"threads {e(tm.get('threads'))}, utterances timed {e(len(tm.get('utterances') or []))}")
+    lines.append("- Metric variants:")
+    for name, var in (m.get("metrics") or {}).items():
+        lines.append(f"    - {e(name)}: {e(_variant(var))}")
+    if not m.get("metrics"):
+        lines.append("    - none recorded")
+    s = st.settings
+    lines.append(f"- Statistics: bootstrap {e(s.method)}, {s.n_resamples} resamples, seed {s.seed}, "
+                 f"{100 * s.confidence:g} % level; unit = utterance (seeds averaged first); "
+                 "failed items excluded and counted")
+    lines += ["", f"> {e(CAUTION)}", "", "## Quality against latency", "", md_table, e(TABLE_NOTES), "",
+              "## Recommendation", "", _md_text(text), "## Files", ""]
+    base = Path(run.path)
+    for name, p in paths.items():
+        lines.append(f"- {e(Path(p).relative_to(base))}")
+    if plots:
+        lines.append(f"- report/plots/ ({len(plots)} files)")
+    return "\n".join(lines) + "\n"

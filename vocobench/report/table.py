@@ -1,0 +1,174 @@
+"""The quality-against-latency table: one row per configuration, four renderings.
+
+Renderings: fixed-width text (terminal), Markdown, CSV (raw numbers, full precision) and LaTeX
+(a plain ``tabular`` written here, so no template engine is needed).
+"""
+from __future__ import annotations
+
+import html
+import math
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+from ..stats import RunStatistics, pareto_mask
+
+NA = "–"
+
+
+def build_table(st: RunStatistics) -> pd.DataFrame:
+    """Wide table of raw numbers, one row per configuration in grid order.
+
+    Per metric column ``c``: ``c_mean, c_ci_low, c_ci_high, c_n, c_diff, c_diff_low, c_diff_high,
+    c_diff_bound, c_p, c_p_holm, c_front``. ``c_front`` is Pareto-front membership over (median
+    RTF, mean of c); configurations with failed items or no latency are left off the front.
+    ``pareto`` lists the metrics whose front a row is on.
+    """
+    lat, fail = st.latency, st.failures
+    rows = []
+    for c in st.configs:
+        L = lat.loc[c.label]
+        rows.append({"config": c.label, "schedule": c.schedule, "sampler": c.sampler,
+                     "steps": c.steps, "nfe": int(L["nfe"]), "reference": c == st.reference,
+                     "rtf_median": L["rtf_median"], "rtf_p90": L["rtf_p90"],
+                     "ms_per_nfe": L["ms_per_nfe"], "first_call_s": L["first_call_s"],
+                     "n_timed": int(L["n_timed"]), "latency_source": L["latency_source"],
+                     "items": int(fail.loc[c.label, "items"]), "failed": int(fail.loc[c.label, "failed"])})
+    table = pd.DataFrame(rows)
+    eligible = (table["failed"] == 0).to_numpy()
+    for col, spec in st.columns.items():
+        m = st.metrics[st.metrics["column"] == col].set_index("config").reindex(table["config"])
+        for k, src in (("mean", "mean"), ("ci_low", "ci_low"), ("ci_high", "ci_high"), ("n", "n"),
+                       ("diff", "diff"), ("diff_low", "diff_low"), ("diff_high", "diff_high"),
+                       ("diff_bound", "diff_bound"), ("p", "p"), ("p_holm", "p_holm")):
+            table[f"{col}_{k}"] = m[src].to_numpy()
+        cost = np.where(eligible, table["rtf_median"].to_numpy(dtype=float), np.nan)
+        table[f"{col}_front"] = pareto_mask(cost, table[f"{col}_mean"].to_numpy(dtype=float),
+                                            bool(spec["higher_is_better"]))
+    table["pareto"] = [", ".join(c for c in st.columns if table.loc[i, f"{c}_front"]) for i in table.index]
+    return table
+
+
+# ---------------------------------------------------------------- cell formatting
+
+def fmt(x: Any, sig: int = 4, sign: bool = False) -> str:
+    """Number with ``sig`` significant digits; NaN/None as a dash."""
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return NA
+    if not math.isfinite(v):
+        return NA
+    return f"{v:+.{sig}g}" if sign else f"{v:.{sig}g}"
+
+
+def fmt_p(p: Any) -> str:
+    try:
+        v = float(p)
+    except (TypeError, ValueError):
+        return NA
+    if not math.isfinite(v):
+        return NA
+    return "<0.001" if v < 0.001 else f"{v:.3f}"
+
+
+def interval(est: Any, lo: Any, hi: Any, sign: bool = False, sig: int = 4) -> str:
+    if fmt(est) == NA:
+        return NA
+    if fmt(lo) == NA or fmt(hi) == NA:
+        return fmt(est, sig, sign)
+    return f"{fmt(est, sig, sign)} [{fmt(lo, 3, sign)}, {fmt(hi, 3, sign)}]"
+
+
+def display_table(table: pd.DataFrame, st: RunStatistics) -> tuple[list[str], list[list[str]]]:
+    """Header and string cells shared by the text, Markdown and LaTeX renderings."""
+    conf = f"{round(100 * st.settings.confidence):d} %"
+    header = ["Configuration", "NFE", "RTF median", "RTF p90", "ms per NFE", "First call s", "Failed"]
+    for col, spec in st.columns.items():
+        unit = f" {spec.get('unit')}" if spec.get("unit") else ""
+        arrow = "↑" if spec["higher_is_better"] else "↓"
+        header += [f"{col}{unit} {arrow} mean [{conf} CI]", f"Δ {col} vs reference [{conf} CI]",
+                   f"Δ {col} Holm p"]
+    header.append("Pareto front")
+    rows = []
+    for _, r in table.iterrows():
+        label = r["config"] + (" (reference)" if r["reference"] else "")
+        if r["latency_source"] == "sweep":
+            label += " (sweep timing)"
+        cells = [label, str(int(r["nfe"])), fmt(r["rtf_median"], 3), fmt(r["rtf_p90"], 3),
+                 fmt(r["ms_per_nfe"], 3), fmt(r["first_call_s"], 3),
+                 f"{int(r['failed'])}/{int(r['items'])}" if r["failed"] else "0"]
+        for col in st.columns:
+            cells.append(interval(r[f"{col}_mean"], r[f"{col}_ci_low"], r[f"{col}_ci_high"]))
+            if r["reference"]:
+                cells += ["reference", NA]
+            else:
+                cells += [interval(r[f"{col}_diff"], r[f"{col}_diff_low"], r[f"{col}_diff_high"],
+                                   sign=True, sig=3), fmt_p(r[f"{col}_p_holm"])]
+        cells.append(r["pareto"] or NA)
+        rows.append(cells)
+    return header, rows
+
+
+# ---------------------------------------------------------------- renderings
+
+def to_text(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
+    """Fixed-width text: first column left-aligned, the others right-aligned."""
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
+
+    def line(cells: Sequence[str]) -> str:
+        return "  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(cells, widths)))
+
+    out = [line(header), "  ".join("-" * w for w in widths)]
+    out += [line(r) for r in rows]
+    return "\n".join(out) + "\n"
+
+
+def md_cell(text: str) -> str:
+    """A Markdown table cell: HTML-escaped (renderers pass raw HTML) and pipes escaped."""
+    return html.escape(str(text), quote=False).replace("|", "\\|").replace("\n", " ")
+
+
+def to_markdown(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
+    out = ["| " + " | ".join(md_cell(h) for h in header) + " |",
+           "|" + "|".join([":---"] + ["---:"] * (len(header) - 1)) + "|"]
+    out += ["| " + " | ".join(md_cell(c) for c in r) + " |" for r in rows]
+    return "\n".join(out) + "\n"
+
+
+_LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
+                  "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
+                  "^": r"\textasciicircum{}", "<": r"\textless{}", ">": r"\textgreater{}",
+                  "Δ": r"$\Delta$", "↑": r"$\uparrow$", "↓": r"$\downarrow$", "–": "--",
+                  "≥": r"$\geq$", "≤": r"$\leq$", "×": r"$\times$"}
+
+
+def latex_escape(text: str) -> str:
+    return "".join(_LATEX_SPECIAL.get(ch, ch) for ch in str(text))
+
+
+def to_latex(header: Sequence[str], rows: Sequence[Sequence[str]], caption: str = "") -> str:
+    """A plain LaTeX ``table``/``tabular`` (no packages beyond the LaTeX kernel)."""
+    spec = "l" + "r" * (len(header) - 1)
+    out = [r"\begin{table}[ht]", r"\centering", r"\small", rf"\begin{{tabular}}{{{spec}}}", r"\hline",
+           " & ".join(latex_escape(h) for h in header) + r" \\", r"\hline"]
+    out += [" & ".join(latex_escape(c) for c in r) + r" \\" for r in rows]
+    out += [r"\hline", r"\end{tabular}"]
+    if caption:
+        out.append(rf"\caption{{{latex_escape(caption)}}}")
+    out.append(r"\end{table}")
+    return "\n".join(out) + "\n"
+
+
+def worst_utterances(st: RunStatistics, n: int) -> pd.DataFrame:
+    """The ``n`` worst utterances (seed-averaged) per configuration and metric, direction-aware."""
+    rows = []
+    for col, spec in st.columns.items():
+        t = st.per_utterance[col]
+        for c in st.configs:
+            s = t[c.label].dropna()
+            s = s.sort_values(ascending=bool(spec["higher_is_better"]), kind="stable").head(n)
+            for rank, (utt, v) in enumerate(s.items(), 1):
+                rows.append({"config": c.label, "column": col, "rank": rank, "utt_id": utt, "value": v})
+    return pd.DataFrame(rows, columns=["config", "column", "rank", "utt_id", "value"])
