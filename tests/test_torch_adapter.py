@@ -102,7 +102,12 @@ def test_one_noise_prediction_matches_numpy_demo(feats, conditioning):
         ab = float(ref.training_schedule.alpha_bars[int(step)])
         x_t = (math.sqrt(ab) * x0 + math.sqrt(1 - ab) * rng.standard_normal(x0.shape)).astype(np.float32)
         t = np.array([step if conditioning == "step" else math.sqrt(ab)])
-        assert rel(den.predict_noise(x_t, feats[None], t), ref.predict_noise(x_t, feats[None], t)) < bound
+        eps_ref = ref.predict_noise(x_t, feats[None], t)
+        # The MDCT's rounding error is relative to ‖x_t‖, and the Wiener gain amplifies it by up
+        # to 1/√(1−ᾱ) (at coefficients with P ≪ 1−ᾱ): scale the bound by the condition number
+        # κ = ‖x_t‖ / (√(1−ᾱ)·‖ε̂‖) when it exceeds 1 (standard forward-error reasoning).
+        kappa = np.linalg.norm(x_t) / (math.sqrt(1 - ab) * np.linalg.norm(eps_ref))
+        assert rel(den.predict_noise(x_t, feats[None], t), eps_ref) < bound * max(1.0, kappa)
 
 
 def float32_tolerance(ref: AnalyticDenoiser, plan, feats: np.ndarray, seed: int) -> float:

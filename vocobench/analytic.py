@@ -23,6 +23,12 @@ from .schedules import NoiseSchedule, linear
 
 DEMO_FRONTEND = MelFrontEnd(sample_rate=22050, n_fft=1024, win_length=1024, hop_length=256,
                             n_mels=80, fmin=0.0, fmax=8000.0)
+# Training schedule of the demo model: linear β over T = 1000 (Ho et al. 2020) ending at 0.02, but
+# starting at 1e-6 as WaveGrad does (Chen et al. 2021; value from memory) rather than 1e-4: the last
+# DDPM step returns E[x_0 | x_1], which shrinks components whose variance is not ≫ β_1, and speech
+# has many quiet MDCT coefficients.
+TRAIN_BETA_START = 1e-6
+TRAIN_BETA_END = 0.02
 MIN_VARIANCE = 1e-10          # −100 dB re full scale: floor of the prior's coefficient variance
 
 
@@ -62,7 +68,7 @@ class AnalyticDenoiser:
     conditioning : {"step", "level"}
         Whether ``t`` is a fractional 0-based training step or the noise level √ᾱ.
     training_steps : int
-        Length T of its linear training schedule (Ho et al. 2020: 1e-4 to 0.02 over T = 1000).
+        Length T of its linear training schedule (1e-6 to 0.02 over T = 1000, scaled by 1000/T).
     """
 
     version = "analytic-1"
@@ -75,7 +81,8 @@ class AnalyticDenoiser:
         self.sample_rate = fe.sample_rate
         self.conditioning = conditioning
         scale = 1000 / training_steps
-        self.training_schedule = linear(training_steps, 1e-4 * scale, min(0.02 * scale, 0.999))
+        self.training_schedule = linear(training_steps, TRAIN_BETA_START * scale,
+                                        min(TRAIN_BETA_END * scale, 0.999))
         self._basis = fe.mel_basis()
         self._win_power = float(np.sum(np.hanning(fe.win_length + 1)[:-1] ** 2))
         self._cache: tuple[bytes, np.ndarray] | None = None      # prior of the last features

@@ -134,7 +134,7 @@ def _check_synthesis(plugin: Plugin, sampler: str, feats: np.ndarray, sched: Any
     finite = np.all(np.isfinite(a))
     res.append(Finding(bool(finite), f"{tag} finite samples",
                        "" if finite else f"{int(np.sum(~np.isfinite(a)))} NaN/Inf samples"))
-    if finite and np.max(np.abs(a)) > 4.0:
+    if finite and a.size and np.max(np.abs(a)) > 4.0:
         res.append(Finding(False, f"{tag} level",
                            f"peak {np.max(np.abs(a)):.1f} (full scale is 1.0): output is diverging"))
     same = a.shape == b.shape and np.array_equal(a, b, equal_nan=True)

@@ -10,6 +10,7 @@ import dataclasses
 import hashlib
 import json
 from dataclasses import dataclass
+from types import SimpleNamespace
 from typing import Any, Mapping
 
 import numpy as np
@@ -58,6 +59,11 @@ class MelFrontEnd:
             v = getattr(self, name)
             if not isinstance(v, (int, np.integer)) or isinstance(v, bool) or v <= 0:
                 raise bad(name, "must be a positive integer")
+        for name in ("fmin", "fmax", "floor"):
+            v = getattr(self, name)
+            if not (v is None and name == "fmax") and (
+                    isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating))):
+                raise bad(name, "must be a number")
         if self.win_length > self.n_fft:
             raise bad("win_length", f"must not exceed n_fft={self.n_fft}")
         nyq = self.sample_rate / 2
@@ -77,6 +83,9 @@ class MelFrontEnd:
             raise bad("floor", "must be a positive finite number")
         if self.floor_mode not in ("clamp", "add"):
             raise bad("floor_mode", "must be 'clamp' (max(x, floor)) or 'add' (x + floor)")
+        if self.normalize is not None and (len(self.normalize) != 2 or not all(
+                np.isfinite(self.normalize)) or self.normalize[1] <= 0):
+            raise bad("normalize", "must be (mean, std) with a finite mean and std > 0")
 
     # -- description ----------------------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -93,11 +102,16 @@ class MelFrontEnd:
                              source=source, field=unknown[0])
         kw = dict(d)
         if kw.get("normalize") is not None:
-            kw["normalize"] = tuple(float(x) for x in kw["normalize"])
+            try:
+                kw["normalize"] = tuple(float(x) for x in kw["normalize"])
+            except (TypeError, ValueError):
+                raise InputError("must be (mean, std) numbers", source=source, field="normalize",
+                                 value=kw["normalize"]) from None
+        merged = {f.name: f.default for f in dataclasses.fields(cls)} | kw
         try:
+            # validate under the caller's source first, so the error keeps its field and value
+            cls.validate(SimpleNamespace(**merged), source)  # type: ignore[arg-type]
             return cls(**kw)
-        except InputError as e:
-            raise InputError(str(e).split(": ", 1)[-1], source=source) from None
         except TypeError as e:
             raise InputError(str(e), source=source) from None
 

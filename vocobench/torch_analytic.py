@@ -31,8 +31,8 @@ from .frontend import MelFrontEnd
 from .schedules import NoiseSchedule, linear
 
 LOG_BASES = {"ln": math.e, "log10": 10.0, "log2": 2.0}
-# Ho et al. 2020, Sec. 4: linear β from 1e-4 to 0.02 over T = 1000 (scaled for other T).
-BETA_START_T1000 = 1e-4
+# Training schedule: linear β over T = 1000 (Ho et al. 2020), scaled for other T.
+BETA_START_T1000 = 1e-6          # as vocobench.analytic (WaveGrad-style start, Chen et al. 2021)
 BETA_END_T1000 = 0.02
 
 

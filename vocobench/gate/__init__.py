@@ -1,0 +1,30 @@
+"""Release regression gate: is the candidate vocoder (or sampler setting) worse than the baseline?
+
+* :func:`compare_runs` — paired, per-configuration verdicts between two stored runs or frozen
+  baselines (rule in :mod:`vocobench.gate.compare`, thresholds in :mod:`vocobench.gate.policy`);
+* :func:`ab_compare` — interleaved A/B latency of two configs on this machine;
+* :func:`freeze` / :func:`load_side` — compact ``vocobench-baseline/1`` files;
+* :func:`assert_no_regression` — for a user's own pytest suite;
+* :mod:`vocobench.gate.outputs` — verdict line, Markdown, JSON, JUnit XML.
+"""
+from __future__ import annotations
+
+from .baseline import BASELINE_FORMAT, freeze, load_baseline, load_side
+from .compare import Comparison, ConfigResult, MetricResult, compare_runs, parse_match
+from .latency import LatencyResult
+from .outputs import junit, markdown, to_json, verdict_line
+from .policy import DEFAULT_ALLOW, Allowance, Policy, load_policy
+from .pytest_helper import assert_no_regression
+
+
+def ab_compare(*args, **kwargs):  # type: ignore[no-untyped-def]
+    """See :func:`vocobench.gate.ab.ab_compare` (imported lazily: it loads the runner)."""
+    from .ab import ab_compare as _ab
+
+    return _ab(*args, **kwargs)
+
+
+__all__ = ["BASELINE_FORMAT", "DEFAULT_ALLOW", "Allowance", "Comparison", "ConfigResult",
+           "LatencyResult", "MetricResult", "Policy", "ab_compare", "assert_no_regression",
+           "compare_runs", "freeze", "junit", "load_baseline", "load_policy", "load_side",
+           "markdown", "parse_match", "to_json", "verdict_line"]

@@ -1,0 +1,190 @@
+"""Renderings of a :class:`~vocobench.gate.compare.Comparison`: one verdict line, a Markdown
+summary for a pull-request comment, JSON, and JUnit XML (one test case per configuration:
+``<failure>`` for a regression, ``<skipped>`` for an inconclusive one).
+
+The JUnit layout follows the widely used Ant/Jenkins JUnit XML schema (``testsuites`` →
+``testsuite@name,tests,failures,errors,skipped,time`` → ``testcase@name,classname,time``;
+common practice, no single published standard).
+"""
+from __future__ import annotations
+
+import math
+import xml.etree.ElementTree as ET
+from datetime import datetime, timezone
+from typing import Any
+
+from ..store import dumps
+from .compare import Comparison, ConfigResult, MetricResult, fmt_signed
+
+LINE_SHOWN = 3                  # regressions named in the verdict line
+
+
+def _metric_brief(m: MetricResult) -> str:
+    return f"{m.column} {fmt_signed(m.diff)} [{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]"
+
+
+def _config_brief(c: ConfigResult) -> str:
+    return f"{c.name} " + ", ".join(c.reasons[:2]) if c.reasons else c.name
+
+
+def verdict_line(comp: Comparison) -> str:
+    """One line: ``REGRESSION: 2 of 30 configurations worse (…)`` or ``PASS: …``."""
+    n, k = len(comp.configs), comp.counts()
+    what = "configurations" if n != 1 else "configuration"
+    others = ", ".join(f"{k[v]} {label}" for v, label in
+                       (("pass", "pass"), ("improvement", "improved"), ("inconclusive", "inconclusive"))
+                       if k[v])
+    tail = []
+    if comp.mode == "runs" and comp.latency_note:
+        tail.append(comp.latency_note)
+    if comp.forced:
+        tail.append("forced despite: " + "; ".join(comp.forced))
+    suffix = ("; " + "; ".join(tail)) if tail else ""
+    if comp.verdict == "regression":
+        bad = comp.by_verdict("regression")
+        shown = "; ".join(_config_brief(c) for c in bad[:LINE_SHOWN])
+        more = f"; and {len(bad) - LINE_SHOWN} more" if len(bad) > LINE_SHOWN else ""
+        return f"REGRESSION: {len(bad)} of {n} {what} worse ({shown}{more}){suffix}"
+    return f"PASS: no configuration worse ({n} compared: {others}){suffix}"
+
+
+# ---------------------------------------------------------------- Markdown
+
+def _cell(m: MetricResult) -> str:
+    if m.n == 0:
+        return "n/a"
+    ci = f"[{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]" if math.isfinite(m.diff_low) else ""
+    p = f" p̃={m.p_holm:.2g}" if math.isfinite(m.p_holm) else ""
+    flag = {"regression": " ❌", "improvement": " ✅", "inconclusive": " ❔"}.get(m.verdict, "")
+    return f"{fmt_signed(m.diff)} {ci}{p}{flag}".strip()
+
+
+def _latency_cell(c: ConfigResult) -> str:
+    lat = c.latency
+    if not math.isfinite(lat.ratio):
+        return lat.verdict
+    ci = f" [{lat.ratio_low:.2f}, {lat.ratio_high:.2f}]" if math.isfinite(lat.ratio_low) else ""
+    return f"×{lat.ratio:.2f}{ci} {lat.verdict}"
+
+
+def _allow_text(m: MetricResult) -> str:
+    if m.allowance.endswith("%"):
+        return f"{m.column} {m.allowance} of the baseline mean"
+    return f"{m.column} {m.allowance}" + (f" {m.unit}" if m.unit else "")
+
+
+def _table(comp: Comparison, rows: list[ConfigResult]) -> list[str]:
+    cols = [m.column for m in comp.configs[0].metrics] if comp.configs else []
+    head = ["configuration", "verdict", *[f"{c} Δ" for c in cols], "RTF ratio", "failed (base/cand)", "n"]
+    out = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+    for c in rows:
+        n = max((m.n for m in c.metrics), default=0)
+        cells = [f"`{c.name}`", f"**{c.verdict}**", *[_cell(m) for m in c.metrics], _latency_cell(c),
+                 f"{c.failed_baseline}/{c.failed_candidate}" + (f" ({c.new_failures} new)" if c.new_failures else ""),
+                 str(n)]
+        out.append("| " + " | ".join(cells) + " |")
+    return out
+
+
+def markdown(comp: Comparison) -> str:
+    """Summary fit for a pull-request comment."""
+    pol = comp.policy
+    title = "❌ REGRESSION" if comp.verdict == "regression" else "✅ PASS"
+    mb, mc = comp.meta.get("baseline", {}), comp.meta.get("candidate", {})
+    lines = [f"### vocobench compare: {title}", "", verdict_line(comp), ""]
+    if comp.mode == "ab":
+        lines.append(f"A/B latency on this machine: baseline `{comp.baseline}` vs candidate `{comp.candidate}`.")
+    else:
+        lines.append(f"Baseline `{comp.baseline}` ({mb.get('target')} {mb.get('version') or ''}, "
+                     f"{mb.get('created_utc')}) · candidate `{comp.candidate}` "
+                     f"({mc.get('target')} {mc.get('version') or ''}, {mc.get('created_utc')})")
+    lines.append("")
+    if comp.forced:
+        lines += ["**Compared with --force although:** " + "; ".join(comp.forced), ""]
+    notable = [c for c in comp.configs if c.verdict != "pass"]
+    if notable:
+        lines += ["#### Configurations not passing cleanly", "", *_table(comp, notable), ""]
+        for c in notable:
+            if c.reasons:
+                lines.append(f"- `{c.name}`: {c.verdict} — " + "; ".join(c.reasons))
+        lines.append("")
+    lines += ["<details><summary>All configurations</summary>", "", *_table(comp, comp.configs), "",
+              "</details>", ""]
+    allow = ", ".join(_allow_text(m) for m in (comp.configs[0].metrics if comp.configs else []))
+    two = 2 * pol.confidence - 1
+    lines += ["#### Rule", "",
+              f"Δ = candidate − baseline, mean over paired utterances (seeds averaged first); "
+              f"[L, U] = one-sided {pol.confidence:g} bootstrap bounds (together a {two:.0%} "
+              f"interval); p̃ = Holm-adjusted two-sided Wilcoxon p. Regression: the bound on the "
+              f"worse side lies beyond the allowed drop and p̃ ≤ {pol.alpha:.3g}; any new failed "
+              f"item is a regression; fewer than {pol.min_items} paired utterances is inconclusive.",
+              f"Allowed drop: {allow or 'n/a'}; RTF +{pol.max_rtf_increase_pct:g} %. "
+              f"Policy: {pol.source}.", ""]
+    notes = list(comp.notes) + ([comp.latency_note] if comp.latency_note else [])
+    if notes:
+        lines += ["#### Notes", "", *[f"- {n}" for n in notes], ""]
+    return "\n".join(lines)
+
+
+# ---------------------------------------------------------------- JSON, JUnit
+
+def to_json(comp: Comparison) -> str:
+    return dumps(comp.to_dict()) + "\n"
+
+
+def _detail(c: ConfigResult) -> str:
+    lines = [f"{c.name}: {c.verdict}"]
+    for m in c.metrics:
+        lines.append(f"  {m.column}: Δ {fmt_signed(m.diff)} [{fmt_signed(m.diff_low)}, "
+                     f"{fmt_signed(m.diff_high)}] n={m.n} allowed {m.allowed:.4g} "
+                     f"p_holm={m.p_holm:.3g} → {m.verdict}{(' (' + m.reason + ')') if m.reason else ''}")
+    lat = c.latency
+    lines.append(f"  latency: {lat.verdict}" + (f" ratio {lat.ratio:.3f}" if math.isfinite(lat.ratio) else "")
+                 + (f" [{lat.ratio_low:.3f}, {lat.ratio_high:.3f}]" if math.isfinite(lat.ratio_low) else "")
+                 + (f" ({lat.reason})" if lat.reason else ""))
+    lines.append(f"  items {c.items_baseline}/{c.items_candidate}, failed {c.failed_baseline}/"
+                 f"{c.failed_candidate}, new failures {c.new_failures}, missing {c.missing}")
+    return "\n".join(lines)
+
+
+def junit(comp: Comparison, suite: str = "vocobench.compare") -> str:
+    """JUnit XML, one ``testcase`` per configuration."""
+    k = comp.counts()
+    attrs = {"name": suite, "tests": str(len(comp.configs)), "failures": str(k["regression"]),
+             "errors": "0", "skipped": str(k["inconclusive"]), "time": "0"}
+    root = ET.Element("testsuites", attrs)
+    ts = ET.SubElement(root, "testsuite", {**attrs, "timestamp":
+                                            datetime.now(timezone.utc).isoformat(timespec="seconds")})
+    props = ET.SubElement(ts, "properties")
+    for name, value in (("baseline", comp.baseline), ("candidate", comp.candidate), ("mode", comp.mode),
+                        ("policy", comp.policy.source), ("verdict", comp.verdict)):
+        ET.SubElement(props, "property", {"name": name, "value": str(value)})
+    for c in comp.configs:
+        schedule, sampler = (c.label.rsplit("/", 2) + ["", ""])[:2]
+        tc = ET.SubElement(ts, "testcase", {"name": c.name, "classname": f"{suite}.{schedule}.{sampler}",
+                                            "time": "0"})
+        msg = "; ".join(c.reasons) or c.verdict
+        if c.verdict == "regression":
+            f = ET.SubElement(tc, "failure", {"message": msg, "type": "regression"})
+            f.text = _detail(c)
+        elif c.verdict == "inconclusive":
+            ET.SubElement(tc, "skipped", {"message": msg})
+        else:
+            out = ET.SubElement(tc, "system-out")
+            out.text = _detail(c)
+    notes = list(comp.forced) + list(comp.notes) + ([comp.latency_note] if comp.latency_note else [])
+    if notes:
+        ET.SubElement(ts, "system-out").text = "\n".join(notes)
+    ET.indent(root)
+    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
+
+
+def write_outputs(comp: Comparison, *, markdown_path: Any = None, json_path: Any = None,
+                  junit_path: Any = None) -> None:
+    from pathlib import Path
+
+    from ..store import write_atomic
+
+    for path, render in ((markdown_path, markdown), (json_path, to_json), (junit_path, junit)):
+        if path:
+            write_atomic(Path(path), render(comp))

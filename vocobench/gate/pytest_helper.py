@@ -1,0 +1,33 @@
+"""A helper for a user's own pytest suite::
+
+    from vocobench.gate import assert_no_regression
+
+    def test_vocoder_release():
+        assert_no_regression("baselines/v1.json.gz", "reports/candidate")
+
+It raises ``AssertionError`` whose message is the Markdown summary, so a failing test shows the
+offending configurations, their intervals and the rule applied.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any, Mapping
+
+from ..store import Run
+from .compare import Comparison, compare_runs
+from .outputs import markdown
+from .policy import Policy
+
+
+def assert_no_regression(baseline: "str | Path | Run", candidate: "str | Path | Run",
+                         policy: "Policy | str | Path | Mapping[str, Any] | None" = None, *,
+                         force: bool = False, match: Mapping[str, str] | None = None) -> Comparison:
+    """Compare (see :func:`vocobench.gate.compare_runs`); raise ``AssertionError`` on a regression.
+
+    Returns the :class:`Comparison` when there is none, for further checks. Incomparable inputs
+    raise :class:`vocobench.errors.InputError` (an error, not a test failure).
+    """
+    comp = compare_runs(baseline, candidate, policy, force=force, match=match)
+    if comp.verdict == "regression":
+        raise AssertionError(markdown(comp))
+    return comp
