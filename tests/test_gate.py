@@ -16,7 +16,6 @@ import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 import soundfile as sf
 from scipy import stats as sst

@@ -16,6 +16,7 @@ from pathlib import Path
 
 import pytest
 
+from vocobench import parallel
 from vocobench.config import parse_config
 from vocobench.errors import InputError
 from vocobench.parallel import WorkerDied, chunk_jobs, run_parallel
@@ -73,6 +74,7 @@ def local2(root) -> Path:
 
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(runner, "run_timing", spy)
+        mp.setattr(parallel, "MAIN_COMPUTES", False)   # two spawned helpers do every item
         out = run(_config(root), root / "local2", progress=False, report=False, workers=2)
     assert alive == [0]
     return out
@@ -116,7 +118,10 @@ def test_resume_with_two_workers_computes_only_missing_keys(root, local2):
     kept = lines[:1]
     # a crash mid-write leaves a torn last line; the journal must drop it and go on
     journal.write_text("".join(kept) + lines[1][: len(lines[1]) // 2], encoding="utf-8")
-    run(_config(root), out, progress=False, report=False, workers=2)
+    run(_config(root), out, progress=False, report=False, workers=2)   # main process computes too
+    import multiprocessing
+
+    assert not multiprocessing.active_children()                 # every helper reaped
     after = journal.read_text(encoding="utf-8").splitlines(keepends=True)
     assert after[:1] == kept                                     # finished item untouched
     keys = [json.loads(x)["key"] for x in after]
@@ -124,7 +129,7 @@ def test_resume_with_two_workers_computes_only_missing_keys(root, local2):
     assert _items(out) == _items(local2)
 
 
-def test_worker_input_error_reaches_the_caller(root, serial):
+def test_worker_input_error_reaches_the_caller(root, monkeypatch):
     # features with the wrong number of mel bands are found by the worker, not by prepare():
     # the InputError must cross the process boundary intact (message, type), as in a serial run
     import numpy as np
@@ -136,11 +141,12 @@ def test_worker_input_error_reaches_the_caller(root, serial):
     (bad / "testset" / "manifest.csv").write_text("id,path,features\npier01,pier01.wav,pier01.npy\n")
     cfg = _config(bad)
     cfg.testset = bad / "testset" / "manifest.csv"
+    monkeypatch.setattr(parallel, "MAIN_COMPUTES", False)      # the error must come from a helper
     with pytest.raises(InputError, match="wrong number of mel bands"):
         run(cfg, bad / "out", progress=False, report=False, workers=2)
 
 
-def test_dead_worker_is_reported_and_finished_items_are_kept(root, tmp_path):
+def test_dead_worker_is_reported_and_finished_items_are_kept(root, tmp_path, monkeypatch):
     # a vocoder that kills its process on one utterance (as a native crash would)
     (tmp_path / "crashing.py").write_text(textwrap.dedent("""
         import os
@@ -156,6 +162,7 @@ def test_dead_worker_is_reported_and_finished_items_are_kept(root, tmp_path):
     cfg.target, cfg.options, cfg.metrics = "crashing:Crashing", {}, ["stoi"]
     cfg.search_path = [tmp_path]
     out = tmp_path / "out"
+    monkeypatch.setattr(parallel, "MAIN_COMPUTES", False)      # never crash the test process
     with pytest.raises(WorkerDied, match="exit code 7"):
         run(cfg, out, progress=False, report=False, workers=2)
     done = read_jsonl(out / ITEMS)

@@ -19,6 +19,7 @@ Outputs may be any array-like, torch tensors included (converted without importi
 """
 from __future__ import annotations
 
+import hashlib
 import importlib
 import importlib.util
 import inspect
@@ -82,7 +83,8 @@ def resolve(target: str, search_path: Sequence[str | Path] = ()) -> Any:
             path = Path(mod_name)
             if not path.is_file():
                 raise InputError("file not found", field="vocoder.target", value=mod_name)
-            spec = importlib.util.spec_from_file_location(f"vocobench_user_{path.stem}", path)
+            tag = hashlib.sha256(str(path.resolve()).encode()).hexdigest()[:8]
+            spec = importlib.util.spec_from_file_location(f"vocobench_user_{path.stem}_{tag}", path)
             module = importlib.util.module_from_spec(spec)  # type: ignore[arg-type]
             sys.modules[spec.name] = module  # type: ignore[union-attr]
             spec.loader.exec_module(module)  # type: ignore[union-attr]
@@ -142,7 +144,8 @@ def _training(obj: Any, source: str) -> NoiseSchedule | None:
     try:
         return NoiseSchedule(np.asarray(to_numpy(ts), dtype=np.float64), "training")
     except InputError as e:
-        raise InputError(f"invalid training_schedule: {e}", source=source) from None
+        raise InputError(f"invalid training_schedule: {e}", source=source,
+                         field="training_schedule") from None
 
 
 @dataclass

@@ -29,6 +29,7 @@ one thread each. ``run.item_timeout_s`` is not enforced there (tasks run off the
 """
 from __future__ import annotations
 
+import collections
 import dataclasses
 import math
 import os
@@ -53,8 +54,10 @@ Record = dict[str, Any]
 Sink = Callable[[Record], None]
 
 DASK_MAX_CHUNK = 16          # Dask returns whole chunks: bounded, so results stream back often
-POLL_S = 0.5                 # how often the parent checks worker liveness while waiting
-JOIN_TIMEOUT_S = 30.0        # grace period for workers to exit after the last chunk
+MAIN_COMPUTES = True         # the main process is worker 0 (see run_local)
+PREFETCH = 2                 # chunks queued ahead per helper, so none waits for the main process
+POLL_S = 0.5                 # how often the main process checks helper liveness while waiting
+JOIN_GRACE_S = 2.0           # after the last item: time for idle helpers to read their sentinel
 DASK_CONNECT_TIMEOUT_S = 10.0
 THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
               "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
@@ -170,7 +173,7 @@ def _portable(exc: BaseException) -> BaseException:
 
 # -- local process pool ---------------------------------------------------------------------
 def _local_worker(payload: bytes, tasks: Any, results: Any) -> None:
-    """Process entry point: build the Setup once, then run chunks until the ``None`` sentinel."""
+    """Helper process: build the Setup once, then run chunks until the ``None`` sentinel."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)       # the parent handles Ctrl-C
     for name in THREAD_ENV:                             # libraries loaded from now on
         os.environ[name] = "1"
@@ -189,6 +192,7 @@ def _local_worker(payload: bytes, tasks: Any, results: Any) -> None:
                     return
                 for job in chunk:
                     results.put(("item", slot.process(job)))
+                results.put(("done",))
     except BaseException as e:                          # noqa: BLE001 — reported to the parent
         results.put(("error", _portable(e), traceback.format_exc()))
 
@@ -198,51 +202,137 @@ class WorkerDied(RuntimeError):
 
 
 def run_local(setup: "Setup", jobs: Sequence["Job"], sink: Sink, workers: int) -> None:
-    """Run ``jobs`` in ``workers`` spawned processes; every record goes to ``sink`` on arrival.
+    """Run ``jobs`` on ``workers`` local processes; every record goes to ``sink`` on arrival.
 
-    Returns only after every worker process has exited (the timing phase must run alone).
+    With :data:`MAIN_COMPUTES` (the default) this process is worker 0: it computes chunks itself
+    between journalling the helpers' records, so ``workers`` processes compute and only
+    ``workers − 1`` are spawned; while the helpers are still starting (imports take seconds) it
+    takes back the chunks queued for them, so a short sweep or resume costs no start-up at all.
+    Returns only after every helper has exited (the timing phase must run alone).
     """
-    import multiprocessing as mp
+    from .runner import Worker
+    from .timing import thread_limit
 
-    chunks = chunk_jobs(jobs, workers)
+    chunks = collections.deque(chunk_jobs(jobs, workers))
     if not chunks:
         return
-    n = min(workers, len(chunks))
-    ctx = mp.get_context("spawn")
-    tasks, results = ctx.Queue(), ctx.Queue()
-    payload = pickle.dumps(_payload(setup))
-    # not daemonic: a user's vocoder may start processes of its own; _stop() always reaps them
-    procs = [ctx.Process(target=_local_worker, args=(payload, tasks, results),
-                         name=f"vocobench-worker-{i}") for i in range(n)]
-    for c in chunks:
-        tasks.put(c)
-    for _ in procs:
-        tasks.put(None)
-    ok = False
-    try:
-        for p in procs:
-            p.start()
-        pending = len(jobs)
-        while pending:
+    helpers = (workers - 1 if MAIN_COMPUTES else workers)
+    helpers = min(helpers, len(chunks) - 1 if MAIN_COMPUTES else len(chunks))
+    own = Worker(setup) if MAIN_COMPUTES else None
+    with thread_limit(1, setup.plugin.obj):
+        if helpers <= 0:
+            for chunk in chunks:
+                for job in chunk:
+                    sink(own.process(job))      # type: ignore[union-attr]
+            return
+        _LocalPool(setup, helpers).run(chunks, own, sink, len(jobs))
+
+
+class _LocalPool:
+    """Spawned helpers fed from a shared queue, ``PREFETCH`` chunks ahead per helper."""
+
+    def __init__(self, setup: "Setup", helpers: int) -> None:
+        import multiprocessing as mp
+
+        ctx = mp.get_context("spawn")
+        self.tasks, self.results = ctx.Queue(), ctx.Queue()
+        payload = pickle.dumps(_payload(setup))
+        # not daemonic: a user's vocoder may start processes of its own; stop() always reaps them
+        self.procs = [ctx.Process(target=_local_worker, args=(payload, self.tasks, self.results),
+                                  name=f"vocobench-worker-{i + 1}") for i in range(helpers)]
+        self.closed = False                 # sentinels sent: no more chunks for the helpers
+        self.can_steal = True
+
+    def run(self, chunks: "collections.deque[list[Job]]", own: "Worker | None", sink: Sink,
+            pending: int) -> None:
+        ok = False
+        try:
+            for p in self.procs:
+                p.start()
+            self._feed(chunks, PREFETCH * len(self.procs))
+            mine: collections.deque[Job] = collections.deque()
+            while pending:
+                pending -= self._collect(chunks, sink, block=False)
+                if not mine and own is not None:
+                    mine.extend(chunks.popleft() if chunks else self._steal())
+                    self._feed(chunks, 0)               # deque empty: the helpers may finish
+                if mine:
+                    sink(own.process(mine.popleft()))       # type: ignore[union-attr]
+                    pending -= 1
+                elif pending:
+                    pending -= self._collect(chunks, sink, block=True)
+            ok = True
+        finally:
+            self._stop(graceful=ok)
+
+    def _feed(self, chunks: "collections.deque[list[Job]]", n: int) -> None:
+        for _ in range(n):
+            if chunks:
+                self.tasks.put(chunks.popleft())
+        if not chunks and not self.closed:
+            for _ in self.procs:
+                self.tasks.put(None)
+            self.closed = True
+
+    def _steal(self) -> list["Job"]:
+        """A chunk queued for the helpers but not yet taken (they may still be starting)."""
+        if not self.can_steal:
+            return []
+        try:
+            chunk = self.tasks.get(block=False)
+        except queue.Empty:
+            return []
+        if chunk is None:                   # only sentinels are left: put it back, stop stealing
+            self.tasks.put(None)
+            self.can_steal = False
+            return []
+        return chunk
+
+    def _collect(self, chunks: "collections.deque[list[Job]]", sink: Sink, block: bool) -> int:
+        """Handle the helpers' messages; with ``block``, wait (and watch liveness) for one."""
+        got = 0
+        while True:
             try:
-                msg = results.get(timeout=POLL_S)
+                msg = self.results.get(timeout=POLL_S) if block and not got else \
+                    self.results.get(block=False)
             except queue.Empty:
-                if any(p.exitcode is not None for p in procs):
-                    pending -= _drain(results, sink)    # a worker's last items may still be in flight
-                    if pending:
-                        _check_alive(procs)
-                continue
+                if block and not got and any(p.exitcode is not None for p in self.procs):
+                    got += self._collect(chunks, sink, block=False)   # last items in flight
+                    if not got:
+                        _check_alive(self.procs)
+                return got
             if msg[0] == "item":
                 sink(msg[1])
-                pending -= 1
+                got += 1
+            elif msg[0] == "done":
+                self._feed(chunks, 1)
             else:
-                _drain(results, sink)
                 _, exc, tb = msg
-                raise exc from _RemoteTraceback(tb)
-        ok = True
-    finally:
-        _stop(procs, tasks, graceful=ok)
-        results.close()
+                try:
+                    self._collect(chunks, sink, block=False)           # keep what others finished
+                finally:
+                    raise exc from _RemoteTraceback(tb)
+
+    def _stop(self, graceful: bool) -> None:
+        """Reap every helper: those idle at their sentinel exit at once; any still starting or
+        (after an error) working are terminated — every item they could return is in."""
+        if not self.closed:
+            for _ in self.procs:
+                self.tasks.put(None)
+        deadline = time.monotonic() + (JOIN_GRACE_S if graceful else 0.0)
+        for p in self.procs:
+            if p.pid is None:                   # never started
+                continue
+            p.join(max(0.0, deadline - time.monotonic()))
+            if p.is_alive():
+                p.terminate()
+                p.join(5.0)
+            if p.is_alive():
+                p.kill()
+                p.join()
+        self.tasks.cancel_join_thread()         # unread chunks after an abort: do not block
+        self.tasks.close()
+        self.results.close()
 
 
 def _check_alive(procs: list[Any]) -> None:
@@ -255,38 +345,6 @@ def _check_alive(procs: list[Any]) -> None:
                              "kept, re-run to resume")
     if all(p.exitcode == 0 for p in procs):
         raise WorkerDied("all worker processes exited with items outstanding")
-
-
-def _drain(results: Any, sink: Sink) -> int:
-    """Journal items that workers already sent (before stopping, or after one exited)."""
-    n = 0
-    while True:
-        try:
-            msg = results.get(timeout=0.05)
-        except (queue.Empty, OSError, EOFError):
-            return n
-        if msg[0] == "item":
-            sink(msg[1])
-            n += 1
-        else:                                   # an error: handled by the main loop's caller
-            _, exc, tb = msg
-            raise exc from _RemoteTraceback(tb)
-
-
-def _stop(procs: list[Any], tasks: Any, graceful: bool) -> None:
-    deadline = time.monotonic() + (JOIN_TIMEOUT_S if graceful else 0.0)
-    for p in procs:
-        if p.pid is None:                       # never started
-            continue
-        p.join(max(0.0, deadline - time.monotonic()))
-        if p.is_alive():
-            p.terminate()
-            p.join(5.0)
-        if p.is_alive():
-            p.kill()
-            p.join()
-    tasks.cancel_join_thread()                  # unread chunks after an abort: do not block
-    tasks.close()
 
 
 # -- Dask ------------------------------------------------------------------------------------

@@ -183,13 +183,20 @@ def items_frame(records: Iterable[Mapping[str, Any]]):
     for r in records:
         row = {k: v for k, v in r.items() if k not in ("tags", "metrics", "notes")}
         row.update({f"tag_{k}": v for k, v in (r.get("tags") or {}).items()})
-        row.update({k: (np.nan if v is None else v) for k, v in (r.get("metrics") or {}).items()})
+        row.update({k: _num(v) for k, v in (r.get("metrics") or {}).items()})
         row["notes"] = json.dumps(r.get("notes") or {}, sort_keys=True) if r.get("notes") else ""
         rows.append(row)
     df = pd.DataFrame(rows)
     first = [c for c in ITEM_ORDER if c in df.columns]
     return df[first + [c for c in df.columns if c not in first and c != "notes"]
               + (["notes"] if "notes" in df.columns else [])]
+
+
+def _num(v: Any) -> float:
+    """Metric value from JSON: null → NaN, "inf"/"-inf" → ±inf (see :func:`dumps`)."""
+    if v is None:
+        return float("nan")
+    return float(v)
 
 
 def load_run(run_dir: str | Path):

@@ -14,7 +14,6 @@ paired percentile bootstrap interval (rounds resampled as pairs) and the rule of
 """
 from __future__ import annotations
 
-import sys
 from contextlib import ExitStack
 from pathlib import Path
 from typing import Any, Callable, Mapping
@@ -162,10 +161,6 @@ def _once(side: str, s: Setup, call: Callable[[], Any], warmup: int) -> float:
     except Exception as e:
         raise _SideFailed(side, f"{side} vocoder raised {type(e).__name__}: {e}") from None
     return t.first_s
-
-
-def _stderr(msg: str) -> None:
-    print(msg, file=sys.stderr)
 
 
 __all__ = ["ab_compare", "DEFAULT_AB_REPEATS", "parse_match"]

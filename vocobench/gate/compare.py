@@ -393,7 +393,8 @@ def _metric(mb: pd.DataFrame, mc: pd.DataFrame, bl: str, cl: str, col: str, spec
             pol: Policy) -> MetricResult:
     xb = mb.loc[bl, col] if bl in mb.index.get_level_values(0) else pd.Series(dtype=float)
     xc = mc.loc[cl, col] if cl in mc.index.get_level_values(0) else pd.Series(dtype=float)
-    pair = pd.concat({"b": xb, "c": xc}, axis=1, join="inner").dropna()
+    pair = pd.concat({"b": xb, "c": xc}, axis=1, join="inner")
+    pair = pair[np.isfinite(pair.to_numpy(dtype=np.float64)).all(axis=1)]     # NaN/±inf: no pair
     d = (pair["c"] - pair["b"]).to_numpy(dtype=np.float64)
     n = int(d.size)
     bmean = float(pair["b"].mean()) if n else math.nan

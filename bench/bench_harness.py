@@ -1,0 +1,408 @@
+"""The harness's own cost: overhead, parallel speed-up, re-run cost, memory against test-set size.
+
+Plain script: ``python bench/bench_harness.py [--quick]``. Uses the demo scenario's test set
+(scenarios/pier-announcements) and vocoder (the analytic denoiser), metrics mcd, pesq_wb and stoi,
+and prints, as ratios against their targets:
+
+1. **overhead** — a full sweep with ``workers = 1`` (``vocobench.runner.run``: test-set scan and
+   hashing, manifest, per-item journal with fsync, saved FLAC outputs, tables; the timing phase is
+   measured and shown apart, it is not overhead) against a bare loop that calls the same vocoder
+   through the same sampler and the same metric functions on the same items, also with one BLAS
+   thread. Wall and CPU time. Target ≤ 1.05×.
+2. **speed-up** — 2 workers over 1 on a metric-bound sweep (steps 1 and 2: scoring dominates),
+   sweep phase only (``run_jobs``) and whole run, plus the pool's start-up time and the
+   steady-state rate (items journalled per second between the first and the last item).
+   Target ≥ 1.8× on a 2-core machine.
+3. **re-run** — the same ``run`` again on the finished directory (everything cached): target
+   ≤ 5 % of the first run.
+4. **memory** — peak RSS of a sweep over 10× more utterances (the demo files copied with tiny
+   gain changes, so their hashes differ), each sweep in a fresh child process
+   (``resource.getrusage``: the child's own peak and, with 2 workers, its pool's). Target ≤ 1.2×.
+
+Phases are timed by wrapping ``runner.run_jobs``, ``runner.run_timing`` and ``Journal.append`` in
+this process (instrumentation only). Other load on the machine distorts wall times: the load
+average is printed before and after; compare CPU times when it is high.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any, Iterator
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+DEMO_CONFIG = ROOT / "scenarios" / "pier-announcements" / "config.toml"
+DEMO_SET = DEMO_CONFIG.parent / "testset"
+METRICS = ["mcd", "pesq_wb", "stoi"]
+TARGETS = {"overhead": 1.05, "speedup": 1.8, "rerun": 0.05, "memory": 1.2}
+COPIES = 10                       # memory: 10× the demo's utterances
+GAIN_STEP = 1e-3                  # copy k is scaled by 1 − k·GAIN_STEP (changes every hash)
+
+
+# -- configurations ---------------------------------------------------------------------------
+def demo_config(testset: Path | None = None, **changes: Any):
+    """The demo config with the bench's metrics, a short timing phase and ``changes`` applied."""
+    from vocobench.config import load_config
+
+    cfg = load_config(DEMO_CONFIG)
+    cfg.metrics = list(METRICS)
+    cfg.decide = {}                   # no report is rendered here; its rule may name other metrics
+    cfg.timing.utterances, cfg.timing.warmup, cfg.timing.repeats = 1, 0, 1
+    if testset is not None:
+        cfg.testset = testset
+    schedules = changes.pop("schedules", None)
+    if schedules is not None:
+        cfg.schedules = [s for s in cfg.schedules if s.name in schedules]
+    for k, v in changes.items():
+        setattr(cfg, k, v)
+    return cfg
+
+
+def overhead_config(quick: bool):
+    if quick:
+        return demo_config(steps=[1, 10], samplers=["ddim"], seeds=[0], schedules=["uniform"])
+    return demo_config(steps=[1, 2, 10], seeds=[0], schedules=["uniform", "cosine"])
+
+
+def speedup_config(quick: bool):
+    if quick:
+        return demo_config(steps=[1, 2], seeds=[0], schedules=["uniform", "cosine"])
+    return demo_config(steps=[1, 2], seeds=list(range(6)))  # 6 utt × 2 × 2 samplers × 3 × 6
+
+
+def memory_config(testset: Path):
+    return demo_config(testset, steps=[1], samplers=["ddim"], seeds=[0], schedules=["uniform"],
+                       save_audio="none")
+
+
+# -- instrumentation ----------------------------------------------------------------------------
+WRAPPED = ("run_jobs", "run_timing", "prepare", "load_testset", "job_key", "save_audio",
+           "write_tables")
+
+
+class Phases:
+    """Wall and CPU time spent in runner functions (summed over calls), and item-journal times."""
+
+    def __init__(self) -> None:
+        from vocobench import runner, store
+
+        self.wall: dict[str, float] = {}
+        self.cpu: dict[str, float] = {}
+        self.started: dict[str, float] = {}
+        self.appends: list[float] = []
+        for name in WRAPPED:
+            setattr(runner, name, self._timed(name, getattr(runner, name)))
+        self._timed("journal", store.Journal.append)     # registers the counters
+        original = store.Journal.append
+        phases = self
+
+        def append(journal: Any, record: Any) -> None:
+            t0, c0 = time.perf_counter(), time.process_time()
+            original(journal, record)
+            phases._add("journal", t0, c0)
+            if journal.path.name == store.ITEMS:
+                phases.appends.append(time.perf_counter())
+
+        store.Journal.append = append
+
+    def _add(self, name: str, t0: float, c0: float) -> None:
+        self.wall[name] = self.wall.get(name, 0.0) + time.perf_counter() - t0
+        self.cpu[name] = self.cpu.get(name, 0.0) + time.process_time() - c0
+
+    def _timed(self, name: str, fn: Any) -> Any:
+        def wrapper(*a: Any, **k: Any) -> Any:
+            t0, c0 = time.perf_counter(), time.process_time()
+            self.started.setdefault(name, t0)
+            try:
+                return fn(*a, **k)
+            finally:
+                self._add(name, t0, c0)
+        return wrapper
+
+    def reset(self) -> None:
+        for d in (self.wall, self.cpu, self.started):
+            d.clear()
+        self.appends.clear()
+
+
+@contextmanager
+def clock() -> Iterator[dict[str, float]]:
+    out: dict[str, float] = {}
+    t0, c0 = time.perf_counter(), time.process_time()
+    yield out
+    out["wall"], out["cpu"] = time.perf_counter() - t0, time.process_time() - c0
+
+
+def harness_run(cfg, out: Path, phases: Phases, workers: int) -> dict[str, Any]:
+    from vocobench.runner import run
+
+    shutil.rmtree(out, ignore_errors=True)
+    phases.reset()
+    kids = resource.getrusage(resource.RUSAGE_CHILDREN)
+    with clock() as t:
+        run(cfg, out, progress=False, report=False, workers=workers)
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    first = phases.appends[0] - phases.started["run_jobs"] if phases.appends else float("nan")
+    return {**t, "sweep": phases.wall.get("run_jobs", 0.0),
+            "timing": phases.wall.get("run_timing", 0.0),
+            "timing_cpu": phases.cpu.get("run_timing", 0.0), "first_item": first,
+            "children_cpu": (after.ru_utime + after.ru_stime) - (kids.ru_utime + kids.ru_stime),
+            "appends": list(phases.appends), "cpu_by": dict(phases.cpu)}
+
+
+def bare_loop(cfg, testset) -> dict[str, float]:
+    """The same items with no harness: construct, synthesise, equalise lengths, score."""
+    import numpy as np
+    from threadpoolctl import threadpool_limits
+
+    from vocobench.analytic import AnalyticDenoiser
+    from vocobench.contracts import Plugin
+    from vocobench.metrics import LengthPolicy, build_metrics
+    from vocobench.runner import item_rng
+    from vocobench.testset import load_audio
+
+    with clock() as t, threadpool_limits(1):
+        plugin = Plugin.wrap(AnalyticDenoiser(**cfg.options))
+        fe, sr = plugin.frontend, plugin.sample_rate
+        metrics = build_metrics(cfg.metrics, cfg.metric_options)
+        policy = LengthPolicy(mode=cfg.length_mode, tolerance_hops=cfg.length_tolerance_hops)
+        samplers = cfg.samplers or plugin.samplers()
+        synth = {s: plugin.synthesizer(s, cfg.sampler_options.get(s)) for s in samplers}
+        points = [(spec.build(n, plugin.training_schedule), s)
+                  for spec in cfg.schedules for n in cfg.steps for s in samplers]
+        n = 0
+        for u in testset.utterances:
+            ref = load_audio(u, sr)
+            feats = fe(ref)
+            states = [m.prepare(ref, sr) for m in metrics]
+            for sched, s in points:
+                for seed in cfg.seeds:
+                    y = np.asarray(synth[s](feats, sched, item_rng(seed, u)), dtype=np.float32)
+                    _, est, _ = policy.apply(ref, y, fe.hop_length)
+                    for m, st in zip(metrics, states):
+                        m.score(st, est, sr)
+                    n += 1
+    return {**t, "items": n}
+
+
+# -- the four measurements -------------------------------------------------------------------
+def measure_overhead(work: Path, phases: Phases, quick: bool) -> dict[str, Any]:
+    from vocobench.testset import TestSet, load_testset
+
+    cfg = overhead_config(quick)
+    ts = load_testset(cfg.testset)
+    # warm-up (lazy imports, caches): per-process costs, paid by neither side below
+    tiny = demo_config(steps=[1], samplers=["ddim"], seeds=[0], schedules=["uniform"])
+    bare_loop(tiny, TestSet(ts.source, ts.utterances[:1]))
+    harness_run(tiny, work / "warm-up", phases, workers=1)
+    bare = bare_loop(cfg, ts)
+    h = harness_run(cfg, work / "overhead", phases, workers=1)
+    wall, cpu = h["wall"] - h["timing"], h["cpu"] - h["timing_cpu"]
+    return {"items": bare["items"], "bare_s": bare["wall"], "bare_cpu_s": bare["cpu"],
+            "harness_s": wall, "harness_cpu_s": cpu, "timing_phase_s": h["timing"],
+            "first_run_s": h["wall"], "first_run_cpu_s": h["cpu"], "ratio": wall / bare["wall"],
+            "cpu_ratio": cpu / bare["cpu"], "cpu_by": h["cpu_by"], "cfg": cfg}
+
+
+def measure_rerun(work: Path, phases: Phases, first: dict[str, Any]) -> dict[str, Any]:
+    from vocobench.runner import run
+
+    phases.reset()
+    with clock() as t:
+        run(first["cfg"], work / "overhead", progress=False, report=False, workers=1)
+    return {"rerun_s": t["wall"], "rerun_cpu_s": t["cpu"], "first_s": first["first_run_s"],
+            "ratio": t["wall"] / first["first_run_s"],
+            "cpu_ratio": t["cpu"] / first["first_run_cpu_s"], "recomputed": len(phases.appends)}
+
+
+def measure_speedup(work: Path, phases: Phases, quick: bool) -> dict[str, Any]:
+    cfg = speedup_config(quick)
+    one = harness_run(cfg, work / "w1", phases, workers=1)
+    two = harness_run(cfg, work / "w2", phases, workers=2)
+    same = _items(work / "w1") == _items(work / "w2")
+
+    def rate(r: dict[str, Any]) -> float:
+        a = r["appends"]
+        return (len(a) - 1) / (a[-1] - a[0]) if len(a) > 1 and a[-1] > a[0] else float("nan")
+
+    serial_cpu = one["cpu_by"]["run_jobs"]
+    pool_cpu = two["children_cpu"]
+    return {"items": len(one["appends"]), "sweep1_s": one["sweep"], "sweep2_s": two["sweep"],
+            "run1_s": one["wall"], "run2_s": two["wall"], "ratio": one["sweep"] / two["sweep"],
+            "run_ratio": one["wall"] / two["wall"], "steady_ratio": rate(two) / rate(one),
+            "first_item1_s": one["first_item"], "first_item2_s": two["first_item"],
+            "serial_cpu_s": serial_cpu, "pool_cpu_s": pool_cpu,
+            "parent_cpu_s": two["cpu_by"]["run_jobs"],
+            "projected": serial_cpu / max((pool_cpu + two["cpu_by"]["run_jobs"]) / 2, 1e-9),
+            "identical": same}
+
+
+def _items(run_dir: Path) -> dict[str, Any]:
+    from vocobench.store import ITEMS, read_jsonl
+
+    return {r["key"]: (r["audio_sha"], r["metrics"]) for r in read_jsonl(run_dir / ITEMS)}
+
+
+def make_copies(src: Path, dst: Path, copies: int) -> Path:
+    """``copies`` gain-scaled copies of every wav in ``src`` (PCM_16 like the originals)."""
+    import soundfile as sf
+
+    dst.mkdir(parents=True, exist_ok=True)
+    for f in sorted(src.glob("*.wav")):
+        y, sr = sf.read(str(f), dtype="float64")
+        info = sf.info(str(f))
+        for k in range(1, copies + 1):
+            sf.write(str(dst / f"{f.stem}_c{k:02d}.wav"), y * (1 - k * GAIN_STEP), sr,
+                     subtype=info.subtype)
+    return dst
+
+
+def rss_child(testset: str, out: str, workers: int) -> None:
+    """Child process: one sweep, then print peak RSS (self, and its pool) as JSON."""
+    from vocobench.runner import run
+
+    cfg = memory_config(Path(testset))
+    run(cfg, out, progress=False, report=False, workers=workers)
+    kib = 1024 if sys.platform != "darwin" else 1
+    print(json.dumps({"self": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * kib,
+                      "pool": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * kib}))
+
+
+def _child_rss(testset: Path, out: Path, workers: int) -> dict[str, int]:
+    res = subprocess.run([sys.executable, __file__, "--rss-child", str(testset), str(out),
+                          str(workers)], capture_output=True, text=True)
+    if res.returncode:
+        sys.stderr.write(res.stderr)
+        raise SystemExit(f"memory child failed with exit code {res.returncode}")
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def measure_memory(work: Path) -> dict[str, Any]:
+    small = work / "set1"
+    small.mkdir()
+    for f in sorted(DEMO_SET.glob("*.wav")):
+        shutil.copy(f, small / f.name)
+    big = make_copies(DEMO_SET, work / f"set{COPIES}", COPIES)
+    out: dict[str, Any] = {"utterances": (len(list(small.glob("*.wav"))),
+                                          len(list(big.glob("*.wav"))))}
+    for w in (1, 2):
+        a = _child_rss(small, work / f"m1_w{w}", w)
+        b = _child_rss(big, work / f"m{COPIES}_w{w}", w)
+        key = "self" if w == 1 else "pool"
+        out[f"w{w}"] = (a[key], b[key], b[key] / a[key])
+    out["cache_all_mb"] = _cache_everything_mb(big)
+    return out
+
+
+def _cache_everything_mb(testset: Path) -> float:
+    """What a sweep would hold if it kept every utterance's reference work (for scale)."""
+    import pickle
+
+    from vocobench.runner import Worker, prepare
+
+    setup = prepare(memory_config(testset), Path(tempfile.mkdtemp()))
+    w = Worker(setup, cache_size=1)
+    one = len(pickle.dumps(w.utterance(0), protocol=5))
+    return one * len(setup.testset.utterances) / 2**20
+
+
+# -- report --------------------------------------------------------------------------------------
+def verdict(ok: bool) -> str:
+    return "meets target" if ok else "MISSES target"
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--quick", action="store_true", help="smaller sweeps (about a minute)")
+    ap.add_argument("--keep", type=Path, help="keep the run directories here")
+    ap.add_argument("--rss-child", nargs=3, metavar=("TESTSET", "OUT", "WORKERS"),
+                    help=argparse.SUPPRESS)
+    a = ap.parse_args(argv)
+    if a.rss_child:
+        rss_child(a.rss_child[0], a.rss_child[1], int(a.rss_child[2]))
+        return 0
+    work = a.keep or Path(tempfile.mkdtemp(prefix="vocobench-bench-"))
+    work.mkdir(parents=True, exist_ok=True)
+    load = [os.getloadavg()[0]]
+    print(f"vocobench harness bench: {os.cpu_count()} CPUs, load average {load[0]:.1f} "
+          f"(before), work dir {work}", flush=True)
+    phases = Phases()
+    ok = True
+    try:
+        o = measure_overhead(work, phases, a.quick)
+        r = measure_rerun(work, phases, o)
+        s = measure_speedup(work, phases, a.quick)
+        m = measure_memory(work)
+    finally:
+        if a.keep is None:
+            shutil.rmtree(work, ignore_errors=True)
+    load.append(os.getloadavg()[0])
+
+    busy = max(load) > (os.cpu_count() or 1) * 0.5
+    if busy:
+        print("note: the machine is busy (load average above half the CPUs): wall times are "
+              "inflated and noisy; the single-process verdicts use CPU time")
+    good = (o["cpu_ratio"] if busy else o["ratio"]) <= TARGETS["overhead"]
+    ok &= good
+    print(f"\n1. overhead, {o['items']} items, workers 1, one BLAS thread:")
+    print(f"   bare loop {o['bare_s']:.2f} s (cpu {o['bare_cpu_s']:.2f} s); harness "
+          f"{o['harness_s']:.2f} s (cpu {o['harness_cpu_s']:.2f} s) + timing phase "
+          f"{o['timing_phase_s']:.2f} s")
+    print(f"   ratio {o['ratio']:.3f}x wall, {o['cpu_ratio']:.3f}x cpu "
+          f"(target <= {TARGETS['overhead']}x): {verdict(good)}")
+    by = o["cpu_by"]
+    parts = [("prepare (test-set scan, plug-in, metrics, job keys)", by.get("prepare", 0.0)),
+             ("  of which job keys", by.get("job_key", 0.0)),
+             ("  of which test-set scan and hashing", by.get("load_testset", 0.0)),
+             ("journal appends (JSON + fsync, items and timing)", by.get("journal", 0.0)),
+             ("saved FLAC outputs", by.get("save_audio", 0.0)),
+             ("tables (items.csv, timing.csv)", by.get("write_tables", 0.0))]
+    print("   harness-only cpu: " + "; ".join(f"{k} {v:.2f} s" for k, v in parts))
+
+    good = s["ratio"] >= TARGETS["speedup"]
+    ok &= good
+    print(f"\n2. speed-up, {s['items']} metric-bound items (steps 1, 2), 2 workers over 1:")
+    print(f"   sweep phase {s['sweep1_s']:.2f} s -> {s['sweep2_s']:.2f} s: {s['ratio']:.2f}x "
+          f"(target >= {TARGETS['speedup']}x): {verdict(good)}")
+    print(f"   whole run {s['run1_s']:.2f} s -> {s['run2_s']:.2f} s: {s['run_ratio']:.2f}x; "
+          f"steady-state rate {s['steady_ratio']:.2f}x; first item after "
+          f"{s['first_item1_s']:.2f} s (workers 1) / {s['first_item2_s']:.2f} s (workers 2)")
+    print(f"   cpu: serial sweep {s['serial_cpu_s']:.2f} s; workers 2: main process "
+          f"{s['parent_cpu_s']:.2f} s + spawned helper {s['pool_cpu_s']:.2f} s (start-up "
+          f"included) -> on an idle 2-core machine about {s['projected']:.2f}x (cpu projection)")
+    print(f"   items identical to workers 1 (audio hashes, metric values): {s['identical']}")
+    ok &= bool(s["identical"])
+
+    good = (r["cpu_ratio"] if busy else r["ratio"]) <= TARGETS["rerun"]
+    ok &= good and r["recomputed"] == 0
+    print(f"\n3. re-run with every item cached: {r['rerun_s']:.2f} s (cpu {r['rerun_cpu_s']:.2f} s)"
+          f" vs first run {r['first_s']:.2f} s = {100 * r['ratio']:.1f} % wall, "
+          f"{100 * r['cpu_ratio']:.1f} % cpu (target <= {100 * TARGETS['rerun']:.0f} %), "
+          f"{r['recomputed']} items recomputed: {verdict(good)}")
+
+    n1, n10 = m["utterances"]
+    print(f"\n4. peak RSS, {n1} vs {n10} utterances (fresh child process each):")
+    for w, label in ((1, "workers 1, the process"), (2, "workers 2, largest worker")):
+        a_, b_, ratio = m[f"w{w}"]
+        good = ratio <= TARGETS["memory"]
+        ok &= good
+        print(f"   {label}: {a_ / 2**20:.0f} MiB -> {b_ / 2**20:.0f} MiB = {ratio:.3f}x "
+              f"(target <= {TARGETS['memory']}x): {verdict(good)}")
+    print(f"   (keeping every utterance's audio, features and metric states would hold "
+          f"~{m['cache_all_mb']:.0f} MiB more)")
+    print(f"\nload average {load[1]:.1f} (after the measurements)")
+    return 0 if ok else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
