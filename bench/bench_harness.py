@@ -9,10 +9,10 @@ and prints, as ratios against their targets:
    measured and shown apart, it is not overhead) against a bare loop that calls the same vocoder
    through the same sampler and the same metric functions on the same items, also with one BLAS
    thread. Wall and CPU time. Target ≤ 1.05×.
-2. **speed-up** — 2 workers over 1 on a metric-bound sweep (steps 1 and 2: scoring dominates),
-   sweep phase only (``run_jobs``) and whole run, plus the pool's start-up time and the
-   steady-state rate (items journalled per second between the first and the last item).
-   Target ≥ 1.8× on a 2-core machine.
+2. **speed-up** — 2 workers over 1 (the main process and one spawned helper) on a metric-bound
+   sweep of 432 items (steps 1 and 2: scoring dominates), sweep phase only (``run_jobs``) and
+   whole run, plus the time to the first item and the steady-state rate (items journalled per
+   second between the first and the last item). Target ≥ 1.8× on a 2-core machine.
 3. **re-run** — the same ``run`` again on the finished directory (everything cached): target
    ≤ 5 % of the first run.
 4. **memory** — peak RSS of a sweep over 10× more utterances (the demo files copied with tiny
@@ -20,8 +20,9 @@ and prints, as ratios against their targets:
    (``resource.getrusage``: the child's own peak and, with 2 workers, its pool's). Target ≤ 1.2×.
 
 Phases are timed by wrapping ``runner.run_jobs``, ``runner.run_timing`` and ``Journal.append`` in
-this process (instrumentation only). Other load on the machine distorts wall times: the load
-average is printed before and after; compare CPU times when it is high.
+this process (instrumentation only). Other load on the machine distorts wall times: when a
+single-process run's wall time exceeds its CPU time by more than 5 %, the script says so and
+judges the single-process figures on CPU time; the speed-up then has a CPU-time projection.
 """
 from __future__ import annotations
 
@@ -45,6 +46,7 @@ DEMO_CONFIG = ROOT / "scenarios" / "pier-announcements" / "config.toml"
 DEMO_SET = DEMO_CONFIG.parent / "testset"
 METRICS = ["mcd", "pesq_wb", "stoi"]
 TARGETS = {"overhead": 1.05, "speedup": 1.8, "rerun": 0.05, "memory": 1.2}
+CONTENDED = 1.05                  # wall/cpu of a single-process run above this: machine busy
 COPIES = 10                       # memory: 10× the demo's utterances
 GAIN_STEP = 1e-3                  # copy k is scaled by 1 − k·GAIN_STEP (changes every hash)
 
@@ -323,7 +325,8 @@ def verdict(ok: bool) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--quick", action="store_true", help="smaller sweeps (about a minute)")
+    ap.add_argument("--quick", action="store_true",
+                    help="smaller sweeps (checks the script; figures dominated by fixed costs)")
     ap.add_argument("--keep", type=Path, help="keep the run directories here")
     ap.add_argument("--rss-child", nargs=3, metavar=("TESTSET", "OUT", "WORKERS"),
                     help=argparse.SUPPRESS)
@@ -348,10 +351,14 @@ def main(argv: list[str] | None = None) -> int:
             shutil.rmtree(work, ignore_errors=True)
     load.append(os.getloadavg()[0])
 
-    busy = max(load) > (os.cpu_count() or 1) * 0.5
+    # a single-threaded run that gets its core has wall ≈ cpu; more means other load competed
+    contention = max(o["bare_s"] / o["bare_cpu_s"], o["harness_s"] / o["harness_cpu_s"],
+                     s["sweep1_s"] / max(s["serial_cpu_s"], 1e-9))
+    busy = contention > CONTENDED
     if busy:
-        print("note: the machine is busy (load average above half the CPUs): wall times are "
-              "inflated and noisy; the single-process verdicts use CPU time")
+        print(f"note: other load competed for the CPUs (single-process wall/cpu up to "
+              f"{contention:.2f}): wall times are inflated and noisy, the single-process "
+              "verdicts use CPU time, and the speed-up is better read from its cpu projection")
     good = (o["cpu_ratio"] if busy else o["ratio"]) <= TARGETS["overhead"]
     ok &= good
     print(f"\n1. overhead, {o['items']} items, workers 1, one BLAS thread:")
@@ -368,6 +375,9 @@ def main(argv: list[str] | None = None) -> int:
              ("saved FLAC outputs", by.get("save_audio", 0.0)),
              ("tables (items.csv, timing.csv)", by.get("write_tables", 0.0))]
     print("   harness-only cpu: " + "; ".join(f"{k} {v:.2f} s" for k, v in parts))
+    flac = by.get("save_audio", 0.0)
+    print(f"   without the saved FLAC outputs (requested output, not bookkeeping): "
+          f"{(o['harness_cpu_s'] - flac) / o['bare_cpu_s']:.3f}x cpu")
 
     good = s["ratio"] >= TARGETS["speedup"]
     ok &= good

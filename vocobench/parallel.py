@@ -16,8 +16,11 @@ Both back ends plug into :func:`vocobench.runner.run_jobs` and keep the serial s
 * **No oversubscription.** Workers limit BLAS/OpenMP threads (threadpoolctl) and the plug-in's own
   (``set_threads``) to 1; the timing phase runs after the pool has exited.
 
-Local workers use the ``spawn`` start method (no forked copies of the parent's threads, locks or
-GPU context). As with any ``spawn`` pool, a script that calls :func:`vocobench.runner.run` with
+Locally, ``workers = N`` means N computing processes: this one (worker 0, which also journals)
+and N − 1 helpers started with the ``spawn`` method (no forked copies of this process's threads,
+locks or GPU context). A helper needs seconds to start (imports); meanwhile worker 0 computes and
+takes back chunks queued for helpers still starting, so short sweeps and small resumes pay no
+start-up. As with any ``spawn`` pool, a script that calls :func:`vocobench.runner.run` with
 ``workers > 1`` must do so under ``if __name__ == "__main__":``.
 
 Dask (optional, ``pip install 'vocobench[dask]'``): the workers need the same Python packages and

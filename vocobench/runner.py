@@ -137,9 +137,13 @@ def build_grid(cfg: RunConfig, plugin: Plugin) -> list[GridPoint]:
     return grid
 
 
-def job_key(setup_ids: dict[str, Any], point: GridPoint, utt: Utterance, seed: int) -> str:
-    blob = dumps({**setup_ids, "schedule": point.describe(), "seed": seed, "utt": utt.sha256})
-    return hashlib.sha256(blob.encode()).hexdigest()[:24]
+def job_key(shared: str, point: str, utt: Utterance, seed: int) -> str:
+    """Cache key: everything that changes a result (``shared``: vocoder, version, front-end,
+    metric variants, length policy; ``point``: schedule, sampler and its options), seed, content."""
+    h = hashlib.sha256(shared.encode())
+    h.update(point.encode())
+    h.update(f"\0{seed}\0{utt.sha256}".encode())
+    return h.hexdigest()[:24]
 
 
 def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet | None = None) -> Setup:
@@ -168,14 +172,16 @@ def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet 
     _check_decide(cfg, metrics)
     out = Path(out_dir) if out_dir else (cfg.output_dir or Path("reports") / "run")
     setup = Setup(cfg, plugin, ts, metrics, policy, grid, out)
-    ids = {"vocoder": {k: v for k, v in plugin.describe().items()}, "version": __version__,
-           "metrics": {m.name: m.variant(plugin.sample_rate) for m in metrics}, "length": policy.describe(),
-           "sampler_options": cfg.sampler_options}
+    ids = {"vocoder": plugin.describe(), "version": __version__,
+           "metrics": {m.name: m.variant(plugin.sample_rate) for m in metrics},
+           "length": policy.describe()}
+    shared = dumps(ids)
+    points = [dumps({"schedule": p.describe(), "options": cfg.sampler_options.get(p.sampler, {})})
+              for p in grid]
     for ui, u in enumerate(ts.utterances):
-        for pi, p in enumerate(grid):
-            opts = {"sampler_options": cfg.sampler_options.get(p.sampler, {})}
+        for pi in range(len(grid)):
             for seed in cfg.seeds:
-                setup.jobs.append(Job(job_key({**ids, **opts}, p, u, seed), ui, pi, seed))
+                setup.jobs.append(Job(job_key(shared, points[pi], u, seed), ui, pi, seed))
     return setup
 
 
