@@ -17,8 +17,6 @@ from __future__ import annotations
 import gzip
 import json
 import math
-import os
-import tempfile
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Mapping
@@ -28,7 +26,7 @@ import pandas as pd
 
 from .. import __version__
 from ..errors import InputError
-from ..store import ITEM_ORDER, Run, dumps, items_frame, load_run
+from ..store import ITEM_ORDER, Run, dumps, items_frame, load_run, write_atomic
 
 BASELINE_FORMAT = "vocobench-baseline/1"
 GZIP_MAGIC = b"\x1f\x8b"
@@ -108,22 +106,8 @@ def freeze(run_dir: str | Path, out: str | Path) -> Path:
     data = baseline_text(run).encode("utf-8")
     if out.name.endswith(".gz"):
         data = gzip.compress(data, compresslevel=9, mtime=0)     # mtime 0: same run, same bytes
-    _write_bytes_atomic(out, data)
+    write_atomic(out, data)
     return out
-
-
-def _write_bytes_atomic(path: Path, data: bytes) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
 
 
 def load_baseline(path: str | Path) -> Run:
