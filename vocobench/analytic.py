@@ -19,7 +19,7 @@ from functools import lru_cache
 import numpy as np
 
 from .frontend import MelFrontEnd
-from .schedules import NoiseSchedule, linear
+from .schedules import linear
 
 DEMO_FRONTEND = MelFrontEnd(sample_rate=22050, n_fft=1024, win_length=1024, hop_length=256,
                             n_mels=80, fmin=0.0, fmax=8000.0)
@@ -75,8 +75,7 @@ class AnalyticDenoiser:
 
     def __init__(self, frontend: dict | MelFrontEnd | None = None, conditioning: str = "step",
                  training_steps: int = 1000) -> None:
-        fe = frontend if isinstance(frontend, MelFrontEnd) else \
-            MelFrontEnd.from_dict(frontend) if frontend else DEMO_FRONTEND
+        fe = MelFrontEnd.coerce(frontend, default=DEMO_FRONTEND)
         self.frontend = fe
         self.sample_rate = fe.sample_rate
         self.conditioning = conditioning
@@ -85,7 +84,8 @@ class AnalyticDenoiser:
                                         min(TRAIN_BETA_END * scale, 0.999))
         self._basis = fe.mel_basis()
         self._win_power = float(np.sum(np.hanning(fe.win_length + 1)[:-1] ** 2))
-        self._cache: tuple[bytes, np.ndarray] | None = None      # prior of the last features
+        self._cache: tuple[np.ndarray, np.ndarray] | None = None  # (features, prior) last seen
+        self._levels = self.training_schedule.noise_levels        # √ᾱ at training steps
 
     def prior_variance(self, features: np.ndarray) -> np.ndarray:
         """MDCT coefficient variances ``(..., frames, hop)`` from log-mel ``(..., n_mels, frames)``."""
@@ -112,17 +112,17 @@ class AnalyticDenoiser:
         return np.maximum(p[..., frames, :], MIN_VARIANCE)
 
     def _prior_cached(self, features: np.ndarray) -> np.ndarray:
-        key = features.tobytes() + str(features.shape).encode()
-        if self._cache is None or self._cache[0] != key:
-            self._cache = (key, self.prior_variance(features))
+        """Prior of the last features seen: a sampler passes the same features at every step."""
+        if self._cache is None or self._cache[0].shape != features.shape \
+                or not np.array_equal(self._cache[0], features):
+            self._cache = (features.copy(), self.prior_variance(features))
         return self._cache[1]
 
     def alpha_bar(self, t: np.ndarray) -> np.ndarray:
         t = np.asarray(t, dtype=np.float64)
         if self.conditioning == "level":
             return np.clip(t, 0.0, 1.0) ** 2
-        ts = self.training_schedule
-        return np.interp(t, np.arange(len(ts)), ts.noise_levels) ** 2
+        return np.interp(t, np.arange(self._levels.size), self._levels) ** 2
 
     def predict_noise(self, x_t: np.ndarray, features: np.ndarray, t: np.ndarray) -> np.ndarray:
         x = np.asarray(x_t, dtype=np.float64)

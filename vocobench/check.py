@@ -13,6 +13,8 @@ import numpy as np
 
 from .contracts import Plugin, instantiate, resolve, to_numpy
 from .errors import InputError
+from .metrics import LengthPolicy
+from .outputs import waveform_problems
 from .schedules import cosine, subsequence
 
 PROBE_SECONDS = 0.5
@@ -117,23 +119,21 @@ def _check_synthesis(plugin: Plugin, sampler: str, feats: np.ndarray, sched: Any
     except Exception as e:
         return [Finding(False, f"{tag} output type", f"not array-like: {e}")]
     res = []
-    if a.ndim != 1:
-        res.append(Finding(False, f"{tag} output shape",
-                           f"returned shape {a.shape}; a 1-D waveform is required"))
-        return res
-    if not np.issubdtype(a.dtype, np.floating):
-        res.append(Finding(False, f"{tag} dtype", f"returned {a.dtype}; floating point is required"))
+    problems = waveform_problems(a)
+    if "shape" in problems:
+        return [Finding(False, f"{tag} output shape", problems["shape"])]
+    if "dtype" in problems:
+        res.append(Finding(False, f"{tag} dtype", problems["dtype"]))
     expected = plugin.frontend.expected_samples(feats.shape[-1])
-    tol = int(tolerance_hops * plugin.frontend.hop_length)
+    tol = LengthPolicy(tolerance_hops=tolerance_hops).tolerance_samples(plugin.frontend.hop_length)
     if abs(a.size - expected) > tol:
         res.append(Finding(False, f"{tag} output length",
                            f"{a.size} samples for {feats.shape[-1]} frames; expected {expected} "
                            f"(frames × hop {plugin.frontend.hop_length}) within ±{tol}"))
     else:
         res.append(Finding(True, f"{tag} output length", f"{a.size} samples, expected {expected}"))
-    finite = np.all(np.isfinite(a))
-    res.append(Finding(bool(finite), f"{tag} finite samples",
-                       "" if finite else f"{int(np.sum(~np.isfinite(a)))} NaN/Inf samples"))
+    finite = "finite" not in problems
+    res.append(Finding(finite, f"{tag} finite samples", problems.get("finite", "")))
     if finite and a.size and np.max(np.abs(a)) > 4.0:
         res.append(Finding(False, f"{tag} level",
                            f"peak {np.max(np.abs(a)):.1f} (full scale is 1.0): output is diverging"))

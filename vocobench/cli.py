@@ -29,8 +29,6 @@ def cmd_run(a: argparse.Namespace) -> int:
     from .runner import run
 
     cfg = load_config(a.config)
-    if a.workers is not None and a.workers < 1:
-        raise InputError("must be at least 1", field="--workers", value=a.workers)
     out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,
               scheduler=a.scheduler)
     print(f"run directory: {out}")

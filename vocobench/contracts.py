@@ -127,18 +127,8 @@ def instantiate(obj: Any, options: Mapping[str, Any], target: str = "") -> Any:
 
 
 # -- the adapter the runner drives ---------------------------------------------------------
-def _frontend(obj: Any, source: str) -> MelFrontEnd:
-    fe = getattr(obj, "frontend", None)
-    if isinstance(fe, MelFrontEnd):
-        return fe
-    if isinstance(fe, Mapping):
-        return MelFrontEnd.from_dict(fe, source=source)
-    raise InputError("must declare 'frontend' (a MelFrontEnd or a dict of its fields)",
-                     source=source, field="frontend", value=type(fe).__name__)
-
-
-def _training(obj: Any, source: str) -> NoiseSchedule | None:
-    ts = getattr(obj, "training_schedule", None)
+def as_training_schedule(ts: Any, source: str = "training_schedule") -> NoiseSchedule | None:
+    """A declared training schedule: a NoiseSchedule, a β array-like (torch too) or None."""
     if ts is None or isinstance(ts, NoiseSchedule):
         return ts
     try:
@@ -176,11 +166,11 @@ class Plugin:
         if isinstance(sr, bool) or not isinstance(sr, (int, np.integer)) or sr <= 0:
             raise InputError("must declare sample_rate as a positive integer", source=source,
                              field="sample_rate", value=sr)
-        fe = _frontend(obj, source)
+        fe = MelFrontEnd.coerce(getattr(obj, "frontend", None), source)
         p = cls(obj, kind, target, dict(options or {}), int(sr), fe,
                 version=getattr(obj, "version", None))
         if kind == "denoiser":
-            p.training_schedule = _training(obj, source)
+            p.training_schedule = as_training_schedule(getattr(obj, "training_schedule", None), source)
             p.conditioning = getattr(obj, "conditioning", None)
             if p.conditioning not in ("step", "level"):
                 raise InputError("conditioning must be 'step' or 'level'", source=source,

@@ -115,6 +115,19 @@ class MelFrontEnd:
         except TypeError as e:
             raise InputError(str(e), source=source) from None
 
+    @classmethod
+    def coerce(cls, fe: Any, source: str = "front-end", field: str = "frontend",
+               default: "MelFrontEnd | None" = None) -> "MelFrontEnd":
+        """A declared front-end: an instance, a dict of its fields, or ``default`` when None."""
+        if fe is None and default is not None:
+            return default
+        if isinstance(fe, MelFrontEnd):
+            return fe
+        if isinstance(fe, Mapping):
+            return cls.from_dict(fe, source=source)
+        raise InputError("frontend must be a MelFrontEnd or a dict of its fields", source=source,
+                         field=field, value=type(fe).__name__)
+
     def fingerprint(self) -> str:
         blob = json.dumps(self.to_dict(), sort_keys=True).encode()
         return hashlib.sha256(blob).hexdigest()[:16]

@@ -11,21 +11,32 @@ from .contracts import to_numpy
 from .errors import ItemFailure
 
 
+def waveform_problems(y: np.ndarray) -> dict[str, str]:
+    """What makes ``y`` unusable as a waveform, keyed ``shape``, ``dtype``, ``empty``, ``finite``
+    (checked in that order; a wrong shape stops the others)."""
+    if y.ndim != 1:
+        return {"shape": f"output has shape {y.shape}; a 1-D waveform is required"}
+    out = {}
+    if not np.issubdtype(y.dtype, np.floating):
+        out["dtype"] = f"output dtype is {y.dtype}; a floating-point waveform is required"
+    if y.size == 0:
+        out["empty"] = "output is empty"
+    elif "dtype" not in out:
+        bad = int(np.sum(~np.isfinite(y)))
+        if bad:
+            out["finite"] = f"output has {bad} non-finite samples (NaN/Inf)"
+    return out
+
+
 def as_waveform(out: Any) -> np.ndarray:
     """Check a vocoder's return value; raise :class:`ItemFailure` with the reason if unusable."""
     try:
         y = to_numpy(out)
     except Exception as e:
         raise ItemFailure(f"output is not array-like ({type(out).__name__}: {e})") from None
-    if y.ndim != 1:
-        raise ItemFailure(f"output has shape {y.shape}; a 1-D waveform is required")
-    if not np.issubdtype(y.dtype, np.floating):
-        raise ItemFailure(f"output dtype is {y.dtype}; a floating-point waveform is required")
-    if y.size == 0:
-        raise ItemFailure("output is empty")
-    bad = ~np.isfinite(y)
-    if bad.any():
-        raise ItemFailure(f"output has {int(bad.sum())} non-finite samples (NaN/Inf)")
+    problems = waveform_problems(y)
+    if problems:
+        raise ItemFailure(next(iter(problems.values())))
     return y.astype(np.float32, copy=False)
 
 

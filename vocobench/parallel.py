@@ -123,7 +123,11 @@ def _absolute(cfg: "RunConfig") -> "RunConfig":
 
 
 def _payload(setup: "Setup") -> tuple["RunConfig", str, "TestSet"]:
-    return _absolute(setup.config), str(Path(setup.out_dir).resolve()), setup.testset
+    """What a worker needs to rebuild the Setup, minus work the main process already did: the
+    version file's hash (carried as the resolved version) and the ``[decide]`` check."""
+    cfg = dataclasses.replace(_absolute(setup.config), version=setup.plugin.version,
+                              version_file=None, decide={})
+    return cfg, str(Path(setup.out_dir).resolve()), setup.testset
 
 
 class _Slot:

@@ -15,7 +15,7 @@ from collections import OrderedDict
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any, Callable
 
 import numpy as np
 
@@ -215,7 +215,8 @@ class Worker:
         self._cache_size = cache_size
 
     def utterance(self, i: int) -> dict[str, Any]:
-        """Reference audio, features and metric states for utterance ``i`` (LRU-cached)."""
+        """Reference audio and features of utterance ``i`` (LRU-cached); metric states are added
+        by :meth:`states` on first use, so the timing phase never computes them."""
         if i in self._utt:
             self._utt.move_to_end(i)
             return self._utt[i]
@@ -228,17 +229,19 @@ class Worker:
         elif feats.shape[0] != self.s.plugin.frontend.n_mels:
             raise InputError("features have the wrong number of mel bands", source=str(u.features_path),
                              field="n_mels", value=feats.shape[0])
-        states = {}
-        for m in self.s.metrics:
-            try:
-                states[m.name] = m.prepare(ref, sr)
-            except MetricUnavailable as e:
-                states[m.name] = e
-        entry = {"ref": ref, "feats": feats, "states": states}
+        entry = {"ref": ref, "feats": feats}
         self._utt[i] = entry
         while len(self._utt) > self._cache_size:
             self._utt.popitem(last=False)
         return entry
+
+    def states(self, i: int) -> dict[str, Any]:
+        """Reference-side analysis of every metric for utterance ``i`` (cached with the audio)."""
+        entry = self.utterance(i)
+        if "states" not in entry:
+            sr = self.s.plugin.sample_rate
+            entry["states"] = {m.name: m.prepare(entry["ref"], sr) for m in self.s.metrics}
+        return entry["states"]
 
     def synth(self, p: int) -> Callable:
         if p not in self._synth:
@@ -283,7 +286,7 @@ class Worker:
                 rel = Path("audio") / _safe(u.id) / f"{_safe(g.spec.name)}__{g.sampler}__{g.steps}__s{job.seed}.flac"
                 save_audio(self.s.out_dir / rel, y, self.s.plugin.sample_rate)
                 rec["audio_path"] = str(rel)
-            self._score(rec, entry["states"], est)
+            self._score(rec, self.states(job.utt), est)
         except ItemFailure as e:
             rec.update(status="failed", failure=str(e))
         return rec
@@ -291,11 +294,8 @@ class Worker:
     def _score(self, rec: dict[str, Any], states: dict[str, Any], est: np.ndarray) -> None:
         sr = self.s.plugin.sample_rate
         for m in self.s.metrics:
-            state = states[m.name]
             try:
-                if isinstance(state, MetricUnavailable):
-                    raise state
-                vals = m.score(state, est, sr)
+                vals = m.score(states[m.name], est, sr)
                 rec["metrics"].update({c.name: float(vals[c.name]) for c in m.columns})
             except MetricUnavailable as e:
                 for c in m.columns:
@@ -387,7 +387,8 @@ def run_timing(setup: Setup, jobs: list[tuple[Job, Utterance]], journal: Journal
 def _peak_memory(plugin: Plugin) -> int | None:
     fn = getattr(plugin.obj, "peak_memory_bytes", None)
     try:
-        return int(fn()) if callable(fn) and fn() is not None else None
+        peak = fn() if callable(fn) else None
+        return None if peak is None else int(peak)
     except Exception:
         return None
 
@@ -423,29 +424,32 @@ def _hms(s: float) -> str:
 def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = True,
         report: bool = True, workers: int | None = None, scheduler: str | None = None) -> Path:
     """Run (or resume) a sweep; returns the run directory."""
+    n_workers = cfg.workers if workers is None else workers
+    if isinstance(n_workers, bool) or not isinstance(n_workers, int) or n_workers < 1:
+        raise InputError("must be a positive integer", field="workers", value=n_workers)
     setup = prepare(cfg, out_dir)
     out = setup.out_dir
     with RunLock(out):
         write_atomic(out / MANIFEST, dumps(setup.manifest()) + "\n")
         journal = Journal(out / ITEMS)
-        done = {r.get("key") for r in read_jsonl(out / ITEMS)}
-        todo = [j for j in setup.jobs if j.key not in done]
+        status = {r.get("key"): r.get("status") for r in read_jsonl(out / ITEMS)}
+        todo = [j for j in setup.jobs if j.key not in status]
         _say(progress, f"{len(setup.jobs)} items ({len(setup.jobs) - len(todo)} already done), "
                        f"{len(setup.grid)} configurations, {len(setup.testset.utterances)} utterances")
         bar = Progress(len(todo), progress)
-        run_jobs(setup, todo, journal, bar, workers or cfg.workers, scheduler or cfg.scheduler)
+        status.update(run_jobs(setup, todo, journal, bar, n_workers, scheduler or cfg.scheduler))
         journal.close()
         tj = Journal(out / TIMING)
         tdone = {r.get("key") for r in read_jsonl(out / TIMING)}
-        failed = {r.get("key") for r in read_jsonl(out / ITEMS) if r.get("status") == "failed"}
+        failed = {k for k, v in status.items() if v == "failed"}
         tjobs = [(j, u) for j, u in timing_plan(setup) if j.key not in tdone | failed]
         tbar = Progress(len(tjobs), progress, label="timing")
         run_timing(setup, tjobs, tj, lambda s: tbar.step(s) if s.startswith("timed") else _say(progress, s))
         tj.close()
         changed = bool(todo or tjobs) or not (out / "summary.md").exists()
-        write_tables(out)
+        stored = write_tables(out)
         if report and changed:
-            render(out, echo=progress)
+            render(stored, echo=progress)
         elif report:
             _say(progress, "nothing new to compute; reports are up to date "
                            f"(re-render with: vocobench report {out})")
@@ -453,30 +457,35 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
 
 
 def run_jobs(setup: Setup, jobs: list[Job], journal: Journal, bar: Progress, workers: int,
-             scheduler: str | None) -> None:
+             scheduler: str | None) -> dict[str, str]:
     """Quality sweep: serial in this process, or in ``workers`` local processes, or on the Dask
     cluster at ``scheduler`` (:mod:`vocobench.parallel`); each record is journalled on arrival.
 
     Every item is computed with one BLAS/OpenMP thread, serial or parallel: multi-threaded BLAS
     changes the last bits of results, and audio hashes and scores must not depend on the worker
-    or core count. The timing phase uses ``[timing] threads``.
+    or core count. The timing phase uses ``[timing] threads``. Returns each new item's status.
     """
+    status: dict[str, str] = {}
+
     def finished(rec: dict[str, Any]) -> None:
         journal.append(rec)
+        status[rec["key"]] = rec["status"]
         bar.step(f"{rec['utt_id']} {rec['schedule']}/{rec['sampler']}/{rec['steps']}")
 
     if scheduler or workers != 1:
         from .parallel import run_parallel
 
         run_parallel(setup, jobs, finished, workers=workers, scheduler=scheduler)
-        return
+        return status
     worker = Worker(setup)
     with thread_limit(1, setup.plugin.obj):
         for job in jobs:
             finished(worker.process(job))
+    return status
 
 
-def render(out: Path, echo: bool = True) -> Any:
+def render(out: Any, echo: bool = True) -> Any:
+    """Reports for a run directory or an already loaded :class:`~vocobench.store.Run`."""
     try:
         from .report import render_report
     except ImportError:          # decision stage not installed in this build

@@ -172,9 +172,6 @@ def _n(n: int) -> int:
 
 
 # -- schedule specs used in a sweep ------------------------------------------------------------
-FIXED_LENGTH = {"kong2021-fast6", "explicit"}
-
-
 @dataclass(frozen=True)
 class ScheduleSpec:
     """How a sweep builds an inference schedule of N steps: a named family plus its options."""

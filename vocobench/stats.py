@@ -105,25 +105,41 @@ def bootstrap_mean_interval(x: Sequence[float], settings: BootstrapSettings = Bo
     sample gives the constant (scipy's BCa is undefined there). If BCa is degenerate (NaN), the
     percentile interval is used instead.
     """
+    return bootstrap_mean_intervals(x, settings, (alternative,))[0]
+
+
+def bootstrap_mean_intervals(x: Sequence[float], settings: BootstrapSettings,
+                             alternatives: Sequence[str]) -> list[tuple[float, float]]:
+    """:func:`bootstrap_mean_interval` for several ``alternatives`` from one bootstrap draw.
+
+    The resamples are drawn once (seeded by ``settings.seed``) and every further interval is
+    computed from that distribution (``scipy.stats.bootstrap(..., n_resamples=0,
+    bootstrap_result=...)``), so each result equals a separate call with the same seed.
+    """
     a = np.asarray(x, dtype=np.float64)
     a = a[np.isfinite(a)]
     if a.size < 2:
-        return (np.nan, np.nan)
+        return [(np.nan, np.nan) for _ in alternatives]
     if np.ptp(a) == 0.0:
         c = float(a[0])
-        return {"less": (-np.inf, c), "greater": (c, np.inf)}.get(alternative, (c, c))
-    method = settings.method
-    for attempt in (method, "percentile"):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", sst.DegenerateDataWarning)
-            warnings.simplefilter("ignore", RuntimeWarning)
-            res = sst.bootstrap((a,), np.mean, n_resamples=int(settings.n_resamples),
-                                confidence_level=float(settings.confidence), method=attempt,
-                                alternative=alternative, rng=np.random.default_rng(settings.seed))
-        lo, hi = float(res.confidence_interval.low), float(res.confidence_interval.high)
-        if not (np.isnan(lo) or np.isnan(hi)):
-            return (lo, hi)
-    return (lo, hi)
+        return [{"less": (-np.inf, c), "greater": (c, np.inf)}.get(alt, (c, c)) for alt in alternatives]
+    res = None
+    out = []
+    for alternative in alternatives:
+        for attempt in (settings.method, "percentile"):
+            n = int(settings.n_resamples) if res is None else 0       # draw only the first time
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", sst.DegenerateDataWarning)
+                warnings.simplefilter("ignore", RuntimeWarning)
+                res = sst.bootstrap((a,), np.mean, n_resamples=n,
+                                    confidence_level=float(settings.confidence), method=attempt,
+                                    alternative=alternative, bootstrap_result=res,
+                                    rng=np.random.default_rng(settings.seed))
+            lo, hi = float(res.confidence_interval.low), float(res.confidence_interval.high)
+            if not (np.isnan(lo) or np.isnan(hi)):
+                break
+        out.append((lo, hi))
+    return out
 
 
 def wilcoxon_p(d: Sequence[float]) -> float:
@@ -210,24 +226,30 @@ def default_reference(configs: Sequence[Config]) -> Config:
 
 
 def config_labels(items: pd.DataFrame) -> pd.Series:
+    """``schedule/sampler/steps`` label of every row (the :attr:`Config.label` form)."""
     return (items["schedule"].astype(str) + "/" + items["sampler"].astype(str) + "/"
             + items["steps"].astype(int).astype(str))
 
 
-def utterance_means(items: pd.DataFrame, column: str, configs: Sequence[Config]) -> pd.DataFrame:
-    """Per-utterance mean of ``column`` over the ``ok`` seeds: rows utterances, columns labels."""
+def utterance_means(items: pd.DataFrame, column: str, configs: Sequence[Config],
+                    key: str = "utt_id") -> pd.DataFrame:
+    """Per-utterance mean of ``column`` over the ``ok`` seeds: rows utterances, columns labels.
+
+    ``key`` is the column identifying an utterance (rows are indexed by it, in item order).
+    """
     labels = [c.label for c in configs]
-    utts = list(dict.fromkeys(items["utt_id"].astype(str)))
+    utts = list(dict.fromkeys(items[key].astype(str)))
     if column not in items.columns:
-        return pd.DataFrame(np.nan, index=pd.Index(utts, name="utt_id"), columns=labels)
-    ok = items[_ok(items)]
-    frame = pd.DataFrame({"config": config_labels(ok), "utt_id": ok["utt_id"].astype(str),
+        return pd.DataFrame(np.nan, index=pd.Index(utts, name=key), columns=labels)
+    ok = items[ok_mask(items)]
+    frame = pd.DataFrame({"config": config_labels(ok), key: ok[key].astype(str),
                           "v": pd.to_numeric(ok[column], errors="coerce")})
-    table = frame.groupby(["utt_id", "config"], sort=False)["v"].mean().unstack("config")
-    return table.reindex(index=pd.Index(utts, name="utt_id"), columns=labels)
+    table = frame.groupby([key, "config"], sort=False)["v"].mean().unstack("config")
+    return table.reindex(index=pd.Index(utts, name=key), columns=labels)
 
 
-def _ok(items: pd.DataFrame) -> pd.Series:
+def ok_mask(items: pd.DataFrame) -> pd.Series:
+    """Rows with ``status == "ok"`` (every row when there is no ``status`` column)."""
     if "status" not in items.columns:
         return pd.Series(True, index=items.index)
     return items["status"].astype(str) == "ok"
@@ -245,7 +267,7 @@ def higher_is_better(columns: Mapping[str, Any], column: str) -> bool:
 def failure_counts(items: pd.DataFrame, configs: Sequence[Config]) -> pd.DataFrame:
     """Items and failed items per configuration (index: labels)."""
     lab = config_labels(items)
-    failed = ~_ok(items)
+    failed = ~ok_mask(items)
     out = pd.DataFrame({"items": lab.value_counts(), "failed": lab[failed].value_counts()})
     return out.reindex([c.label for c in configs]).fillna(0).astype(int)
 
@@ -281,7 +303,7 @@ def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence
             if secs.size:
                 row["first_call_s"] = float(np.median(secs))
         if row["latency_source"] == "none":
-            sw = items[(ilab == c.label) & _ok(items)]
+            sw = items[(ilab == c.label) & ok_mask(items)]
             rtf = pd.to_numeric(sw.get("rtf"), errors="coerce").dropna().to_numpy() if len(sw) else []
             if len(rtf):
                 row.update(rtf_median=float(np.median(rtf)), rtf_p90=float(np.percentile(rtf, 90)),
@@ -320,7 +342,8 @@ class RunStatistics:
 
 
 def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[str] | None = None,
-              settings: BootstrapSettings = BootstrapSettings()) -> RunStatistics:
+              settings: BootstrapSettings = BootstrapSettings(), reference_source: str | None = None,
+              reference_field: str = "reference") -> RunStatistics:
     """Compute per-configuration statistics of a loaded run (see module docstring).
 
     Parameters
@@ -330,6 +353,8 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
     columns : metric columns to analyse; default every column of ``manifest["columns"]`` that has
         a boolean ``higher_is_better`` (others, such as counts, are informational).
     settings : bootstrap settings (recorded in the result).
+    reference_source, reference_field : where ``reference`` came from, named in the error raised
+        when the run has no items of that configuration.
 
     The long ``metrics`` table has, per (config, column): ``n`` (utterances with a value),
     ``mean``, ``median``, ``ci_low``, ``ci_high`` (bootstrap of the utterance means), and against
@@ -359,7 +384,8 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
     ref = reference or default_reference(configs)
     if ref not in configs:
         raise InputError("reference configuration has no items in this run; valid: "
-                         + ", ".join(c.label for c in configs), field="reference", value=ref.label)
+                         + ", ".join(c.label for c in configs), source=reference_source,
+                         field=reference_field, value=ref.label)
     nfe = _nfe_map(manifest, items)
     rows, per_utt = [], {}
     for col in names:
@@ -380,9 +406,8 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
             if c != ref:
                 d = (table[c.label] - ref_vals).to_numpy(dtype=np.float64)
                 d = d[np.isfinite(d)]
-                dlo, dhi = bootstrap_mean_interval(d, settings)
                 side = "greater" if hib else "less"
-                b = bootstrap_mean_interval(d, settings, alternative=side)
+                (dlo, dhi), b = bootstrap_mean_intervals(d, settings, ("two-sided", side))
                 r.update(diff=float(d.mean()) if d.size else np.nan, diff_low=dlo, diff_high=dhi,
                          diff_bound=b[0] if hib else b[1], n_pairs=int(d.size), p=wilcoxon_p(d))
             block.append(r)

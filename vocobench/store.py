@@ -20,7 +20,7 @@ import os
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable, Iterator, Mapping
+from typing import Any, Iterable, Mapping
 
 import numpy as np
 
@@ -85,9 +85,6 @@ class Journal:
     def __init__(self, path: Path) -> None:
         self.path = Path(path)
         self._f = None
-
-    def __iter__(self) -> Iterator[dict[str, Any]]:
-        return iter(read_jsonl(self.path))
 
     def append(self, record: Mapping[str, Any]) -> None:
         if self._f is None:
@@ -240,8 +237,9 @@ def _dedupe_timing(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
     return list(seen.values())
 
 
-def write_tables(run_dir: Path) -> None:
-    """Render ``items.csv`` and ``timing.csv`` from the journals."""
+def write_tables(run_dir: Path) -> Run:
+    """Render ``items.csv`` and ``timing.csv`` from the journals; returns the loaded run."""
     run = load_run(run_dir)
     write_atomic(Path(run_dir) / "items.csv", run.items.to_csv(index=False))
     write_atomic(Path(run_dir) / "timing.csv", run.timing.to_csv(index=False))
+    return run

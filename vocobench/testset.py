@@ -8,6 +8,7 @@ the vocoder's rate with the soxr "VHQ" resampler and mixed down to mono with a w
 from __future__ import annotations
 
 import csv
+import io
 import hashlib
 import warnings
 from dataclasses import dataclass, field
@@ -36,7 +37,7 @@ class Utterance:
     tags: dict[str, str] = field(default_factory=dict)
     features_path: Path | None = None
 
-    def describe(self, root: Path) -> dict[str, Any]:
+    def describe(self) -> dict[str, Any]:
         return {"id": self.id, "sha256": self.sha256, "duration_s": round(self.duration_s, 6),
                 "native_rate": self.native_rate, "channels": self.channels, "tags": self.tags,
                 "path": str(self.path), "features": str(self.features_path) if self.features_path else None}
@@ -58,7 +59,7 @@ class TestSet:
     def describe(self) -> dict[str, Any]:
         return {"source": str(self.source), "fingerprint": self.fingerprint,
                 "n_utterances": len(self.utterances), "resampler": RESAMPLER,
-                "utterances": [u.describe(self.source) for u in self.utterances]}
+                "utterances": [u.describe() for u in self.utterances]}
 
 
 def load_testset(path: str | Path, source: str = "testset.path") -> TestSet:
@@ -126,8 +127,7 @@ def _inspect(uid: str, path: Path, tags: dict[str, str], feats: Path | None) -> 
         raise InputError("audio file not found", source=str(path), field="path")
     data = path.read_bytes()
     try:
-        info = sf.info(str(path))
-        y, rate = sf.read(str(path), dtype="float64", always_2d=True)
+        y, rate = sf.read(io.BytesIO(data), dtype="float64", always_2d=True)
     except Exception as e:
         raise InputError(f"unreadable or corrupt audio: {str(e).strip() or type(e).__name__}",
                          source=str(path)) from None
@@ -150,7 +150,7 @@ def _inspect(uid: str, path: Path, tags: dict[str, str], feats: Path | None) -> 
     if feats is not None and not feats.is_file():
         raise InputError("features file not found", source=str(feats), field="features")
     return Utterance(uid, path.resolve(), hashlib.sha256(data).hexdigest(), dur, int(rate),
-                     int(info.channels), tags, feats)
+                     int(y.shape[1]), tags, feats)
 
 
 def load_audio(utt: Utterance, sample_rate: int) -> np.ndarray:

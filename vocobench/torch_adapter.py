@@ -299,15 +299,6 @@ def _module_attr(module: Any, given: Any, name: str) -> Any:
     return value
 
 
-def _frontend(fe: Any) -> MelFrontEnd:
-    if isinstance(fe, MelFrontEnd):
-        return fe
-    if isinstance(fe, Mapping):
-        return MelFrontEnd.from_dict(fe, source="torch adapter")
-    raise InputError("frontend must be a MelFrontEnd or a dict of its fields",
-                     field="vocoder.options.frontend", value=type(fe).__name__)
-
-
 # -- denoiser --------------------------------------------------------------------------------
 class TorchDenoiser(TorchModel):
     """A torch noise predictor ``forward(x_t (B, S), features (B, n_mels, F), t (B,)) -> ε̂ (B, S)``
@@ -340,16 +331,14 @@ class TorchDenoiser(TorchModel):
         super().__init__(model, **options)
         m = self.module
         self.sample_rate = int(_module_attr(m, sample_rate, "sample_rate"))
-        self.frontend = _frontend(_module_attr(m, frontend, "frontend"))
+        self.frontend = MelFrontEnd.coerce(_module_attr(m, frontend, "frontend"), "torch adapter", "vocoder.options.frontend")
         self.conditioning = _choice(conditioning or getattr(m, "conditioning", None),
                                     ("step", "level"), "vocoder.options.conditioning")
+        from .contracts import as_training_schedule
+
         ts = training_schedule if training_schedule is not None else \
             getattr(m, "training_schedule", None)
-        if ts is not None and not isinstance(ts, NoiseSchedule):
-            from .contracts import to_numpy
-
-            ts = NoiseSchedule(np.asarray(to_numpy(ts), dtype=np.float64), "training")
-        self.training_schedule = ts
+        self.training_schedule = as_training_schedule(ts, "torch adapter")
         self.noise = _choice(noise, NOISE_SOURCES, "vocoder.options.noise")
         self.loop = _choice(loop, LOOPS, "vocoder.options.loop")
         self.t_dtype = self.dtype if t_dtype == "model" else \
@@ -461,7 +450,7 @@ class TorchVocoder(TorchModel):
         super().__init__(model, **options)
         m = self.module
         self.sample_rate = int(_module_attr(m, sample_rate, "sample_rate"))
-        self.frontend = _frontend(_module_attr(m, frontend, "frontend"))
+        self.frontend = MelFrontEnd.coerce(_module_attr(m, frontend, "frontend"), "torch adapter", "vocoder.options.frontend")
         names = samplers if samplers is not None else getattr(m, "samplers", None)
         if names is not None:
             self.samplers = [str(s) for s in names]

@@ -28,12 +28,10 @@ except ImportError as e:  # pragma: no cover - exercised only without torch
 
 from .analytic import DEMO_FRONTEND, MIN_VARIANCE
 from .frontend import MelFrontEnd
+from .analytic import TRAIN_BETA_END, TRAIN_BETA_START
 from .schedules import NoiseSchedule, linear
 
 LOG_BASES = {"ln": math.e, "log10": 10.0, "log2": 2.0}
-# Training schedule: linear β over T = 1000 (Ho et al. 2020), scaled for other T.
-BETA_START_T1000 = 1e-6          # as vocobench.analytic (WaveGrad-style start, Chen et al. 2021)
-BETA_END_T1000 = 0.02
 
 
 def mdct_matrix(n: int, dtype: torch.dtype = torch.float64) -> Tensor:
@@ -87,20 +85,21 @@ class TorchAnalyticDenoiser(nn.Module):
     def __init__(self, frontend: dict | MelFrontEnd | None = None, conditioning: str = "step",
                  training_steps: int = 1000) -> None:
         super().__init__()
-        fe = frontend if isinstance(frontend, MelFrontEnd) else \
-            MelFrontEnd.from_dict(frontend) if frontend else DEMO_FRONTEND
+        fe = MelFrontEnd.coerce(frontend, default=DEMO_FRONTEND)
         self.frontend = fe
         self.sample_rate = fe.sample_rate
         self.conditioning = conditioning
         scale = 1000 / training_steps
         self.training_schedule: NoiseSchedule = linear(
-            training_steps, BETA_START_T1000 * scale, min(BETA_END_T1000 * scale, 0.999))
+            training_steps, TRAIN_BETA_START * scale, min(TRAIN_BETA_END * scale, 0.999))
         n = fe.hop_length
         self.register_buffer("basis", mdct_matrix(n, torch.float32))
         self._host = self._constants(fe, n)             # float64, CPU; see module docstring
         levels = torch.as_tensor(self.training_schedule.noise_levels, dtype=torch.float64)
         self._host["one_minus_level"] = 1 - levels      # 1 − √ᾱ at training steps 0..T−1
         self._cache: dict[tuple[str, torch.dtype], dict[str, Tensor]] = {}
+        self._prior_key: Tensor | None = None
+        self._prior: Tensor | None = None
 
     @staticmethod
     def _constants(fe: MelFrontEnd, n: int) -> dict[str, Tensor]:
@@ -151,6 +150,13 @@ class TorchAnalyticDenoiser(nn.Module):
         frames = (torch.arange(n_frames, device=p.device) + 1).clamp_max(n_frames - 1)
         return p[..., frames, :].clamp_min(MIN_VARIANCE)   # MDCT frame k sits under mel frame k+1
 
+    def _prior_cached(self, features: Tensor) -> Tensor:
+        """Prior of the last features tensor seen: the samplers pass the same tensor object at
+        every step (features are not modified in place between steps)."""
+        if self._prior_key is not features:       # holding the tensor keeps its storage ours
+            self._prior_key, self._prior = features, self.prior_variance(features)
+        return self._prior
+
     def noise_variance(self, t: Tensor, dtype: torch.dtype) -> Tensor:
         """``1 − ᾱ`` for conditioning values ``t`` (fractional step, or √ᾱ), in ``dtype``."""
         if self.conditioning == "level":     # in t's own precision first: 1 − √ᾱ cancels
@@ -171,7 +177,7 @@ class TorchAnalyticDenoiser(nn.Module):
         if x_t.shape[-1] % n:
             raise ValueError(f"signal length {x_t.shape[-1]} is not a multiple of the hop {n}")
         wd = _work_dtype(x_t.dtype)
-        p = self.prior_variance(features)[..., : x_t.shape[-1] // n, :]
+        p = self._prior_cached(features)[..., : x_t.shape[-1] // n, :]
         b2 = self.noise_variance(t, wd)[:, None, None]
         gain = b2.sqrt() / ((1 - b2) * p + b2)
         basis = self.basis.to(x_t.dtype)

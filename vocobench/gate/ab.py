@@ -25,7 +25,7 @@ from ..errors import InputError
 from ..runner import Setup, Worker, item_rng, prepare, timing_utterances
 from ..testset import load_audio, load_features
 from ..timing import hardware, thread_limit, time_call
-from .compare import Comparison, ConfigResult, parse_match
+from .compare import Comparison, ConfigResult, _config_verdict
 from .latency import LatencyResult, latency_verdict, ratio_of_medians
 from .policy import Policy, resolve_policy
 
@@ -100,10 +100,8 @@ def ab_compare(baseline: "RunConfig | str | Path", candidate: "RunConfig | str |
             verdict, why = latency_verdict(r, lo, hi, len(a_rtf), len(b_rtf), pol.max_rtf_increase_pct)
             res.latency = LatencyResult(verdict, float(np.median(a_rtf)), float(np.median(b_rtf)), r,
                                         lo, hi, len(a_rtf), len(b_rtf), "A/B", why)
-            res.verdict = verdict if verdict in ("regression", "improvement", "pass") else "inconclusive"
-            if verdict == "regression":
-                res.reasons = [f"RTF ×{r:.3g} [{lo:.3g}, {hi:.3g}]"]
-            elif why:
+            _config_verdict(res, pol)
+            if res.verdict == "improvement":         # no metric names it: give the latency's reason
                 res.reasons = [why]
             raw[res.name] = {"baseline_rtf": a_rtf, "candidate_rtf": b_rtf}
             results.append(res)
@@ -163,4 +161,4 @@ def _once(side: str, s: Setup, call: Callable[[], Any], warmup: int) -> float:
     return t.first_s
 
 
-__all__ = ["ab_compare", "DEFAULT_AB_REPEATS", "parse_match"]
+__all__ = ["ab_compare", "DEFAULT_AB_REPEATS"]

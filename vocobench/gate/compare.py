@@ -18,16 +18,16 @@ unit; a relative allowance is taken of the baseline mean of the paired utterance
 ``U`` the one-sided lower and upper bootstrap bounds of mean(s), each at the policy's confidence
 ``c`` (paired bootstrap over utterances, :func:`vocobench.stats.bootstrap_mean_interval`, BCa by
 default, Efron 1987; the same one-sided convention as ``diff_bound`` in
-:func:`vocobench.stats.summarise`), and ``p̃`` the two-sided Wilcoxon signed-rank p-value of
+:func:`vocobench.stats.summarise`), and *Holm p* the two-sided Wilcoxon signed-rank p-value of
 ``d`` (Wilcoxon 1945), Holm-adjusted across the compared configurations of that metric (Holm
 1979), ``α = 1 − c``:
 
 * **inconclusive** if fewer than ``min_items`` utterances are paired;
-* **regression** if ``U < −δ`` and ``p̃ ≤ α``: with confidence ``c`` the mean dropped by more
+* **regression** if ``U < −δ`` and Holm p ``≤ α``: with confidence ``c`` the mean dropped by more
   than allowed, and the drop survives the multiple-comparison correction over the grid;
-* **inconclusive** as well if ``U < −δ`` but ``p̃ > α`` (the bound shows a drop the rank test,
+* **inconclusive** as well if ``U < −δ`` but Holm p ``> α`` (the bound shows a drop the rank test,
   after the correction, does not confirm — typical of very few utterances);
-* **improvement** if ``L > δ`` and ``p̃ ≤ α``;
+* **improvement** if ``L > δ`` and Holm p ``≤ α``;
 * **pass** otherwise (no evidence of a drop beyond the allowance).
 
 A true drop of exactly ``δ`` is thus called a regression with probability about ``1 − c``, a
@@ -61,7 +61,8 @@ import pandas as pd
 
 from ..errors import InputError
 from ..store import Run
-from ..stats import CONFIG_KEYS, Config, bootstrap_mean_interval, configurations, holm, wilcoxon_p
+from ..stats import (CONFIG_KEYS, Config, bootstrap_mean_intervals, config_labels, configurations, holm,
+                     ok_mask, utterance_means, wilcoxon_p)
 from .baseline import load_side
 from .latency import LatencyResult, hardware_differences, stored_latency
 from .policy import Policy, resolve_policy
@@ -178,8 +179,13 @@ def _dict_diff(a: Mapping[str, Any] | None, b: Mapping[str, Any] | None) -> list
     return sorted(k for k in set(a) | set(b) if a.get(k) != b.get(k))
 
 
-def comparability(base: Run, cand: Run, *, check_grid: bool = True) -> tuple[list[str], list[str]]:
-    """``(problems, cautions)``: reasons the runs are not comparable, and softer differences."""
+def comparability(base: Run, cand: Run, *, check_grid: bool = True,
+                  configs: tuple[Sequence[Config], Sequence[Config]] | None = None
+                  ) -> tuple[list[str], list[str]]:
+    """``(problems, cautions)``: reasons the runs are not comparable, and softer differences.
+
+    ``configs``: each side's :func:`~vocobench.stats.configurations`, if already computed.
+    """
     mb, mc = base.manifest, cand.manifest
     problems, cautions = [], []
     db, dc = mb.get("dataset") or {}, mc.get("dataset") or {}
@@ -207,13 +213,18 @@ def comparability(base: Run, cand: Run, *, check_grid: bool = True) -> tuple[lis
     if (mb.get("length_policy") or None) != (mc.get("length_policy") or None):
         problems.append(f"different length policies ({mb.get('length_policy')} vs {mc.get('length_policy')})")
     if check_grid:
-        gb = [c.label for c in configurations(mb, base.items)] if len(base.items) else []
-        gc = [c.label for c in configurations(mc, cand.items)] if len(cand.items) else []
+        cb, cc = configs or _side_configs(base, cand)
+        gb, gc = [c.label for c in cb], [c.label for c in cc]
         only_b, only_c = [g for g in gb if g not in gc], [g for g in gc if g not in gb]
         if only_b or only_c:
             problems.append("different configurations (only in baseline: "
                             f"{', '.join(only_b) or 'none'}; only in candidate: {', '.join(only_c) or 'none'})")
     return problems, cautions
+
+
+def _side_configs(base: Run, cand: Run) -> tuple[list[Config], list[Config]]:
+    """Each side's configurations with items (none for a run without items)."""
+    return tuple(configurations(r.manifest, r.items) if len(r.items) else [] for r in (base, cand))
 
 
 # ---------------------------------------------------------------- preparation
@@ -226,13 +237,11 @@ def _prepared(run: Run) -> pd.DataFrame:
     df = items.copy()
     sha = df["utt_sha"].astype(str) if "utt_sha" in df.columns else pd.Series("", index=df.index)
     df[UKEY] = df["utt_id"].astype(str) + "@" + sha.where(sha != "None", "")
-    df[CFG] = (df["schedule"].astype(str) + "/" + df["sampler"].astype(str) + "/"
-               + pd.to_numeric(df["steps"]).astype(int).astype(str))
+    df[CFG] = config_labels(df)
     if "seed" not in df.columns:
         df["seed"] = 0
     df["seed"] = pd.to_numeric(df["seed"], errors="coerce").fillna(-1).astype(int)
-    st = df["status"].astype(str) if "status" in df.columns else pd.Series("ok", index=df.index)
-    df["_ok"] = st == "ok"
+    df["_ok"] = ok_mask(df)
     return df
 
 
@@ -256,9 +265,8 @@ def _directed_columns(base: Run, cand: Run) -> tuple[list[str], list[str]]:
     return cols, notes
 
 
-def _pairs(base: Run, cand: Run, match: Mapping[str, str] | None) -> list[tuple[Config, Config]]:
-    cb = configurations(base.manifest, base.items)
-    cc = configurations(cand.manifest, cand.items)
+def _pairs(cb: Sequence[Config], cc: Sequence[Config],
+           match: Mapping[str, str] | None) -> list[tuple[Config, Config]]:
     if match:
         out = []
         for b, c in match.items():
@@ -313,12 +321,13 @@ def compare_runs(baseline: "str | Path | Run", candidate: "str | Path | Run",
     for run, side in ((base, "baseline"), (cand, "candidate")):
         if run.items is None or not len(run.items):
             raise InputError(f"the {side} has no finished items", source=str(run.path))
-    problems, cautions = comparability(base, cand, check_grid=not match)
+    configs = _side_configs(base, cand)
+    problems, cautions = comparability(base, cand, check_grid=not match, configs=configs)
     if problems and not force:
         raise InputError("not comparable: " + "; ".join(problems) + "; use --force to compare anyway")
     comp = Comparison(str(base.path), str(cand.path), [], pol, forced=list(problems),
                       notes=list(cautions), meta=_meta(base, cand))
-    pairs = _pairs(base, cand, match)
+    pairs = _pairs(*configs, match)
     if not pairs:
         raise InputError("the runs have no configuration in common")
     bi, ci = _prepared(base), _prepared(cand)
@@ -339,11 +348,12 @@ def compare_runs(baseline: "str | Path | Run", candidate: "str | Path | Run",
     if hw:
         comp.latency_note = "latency not comparable: " + "; ".join(hw)
     results = [_config_items(bi, ci, b, c, matched_seeds=bool(common)) for b, c in pairs]
-    mb = _utterance_means(bi, cols)
-    mc = _utterance_means(ci, cols)
+    cfg_b, cfg_c = list(dict.fromkeys(b for b, _ in pairs)), list(dict.fromkeys(c for _, c in pairs))
     for col in cols:
         spec = base.metric_columns[col]
-        rows = [_metric(mb, mc, b.label, c.label, col, spec, pol) for b, c in pairs]
+        mb = utterance_means(bi, col, cfg_b, key=UKEY)
+        mc = utterance_means(ci, col, cfg_c, key=UKEY)
+        rows = [_metric(mb[b.label], mc[c.label], col, spec, pol) for b, c in pairs]
         for r, adj in zip(rows, holm([r.p for r in rows])):
             r.p_holm = float(adj)
         for r, res in zip(rows, results):
@@ -366,14 +376,6 @@ def _meta(base: Run, cand: Run) -> dict[str, Any]:
     return {"baseline": side(base), "candidate": side(cand)}
 
 
-def _utterance_means(items: pd.DataFrame, cols: Sequence[str]) -> pd.DataFrame:
-    ok = items[items["_ok"]]
-    vals = ok[[CFG, UKEY]].copy()
-    for c in cols:
-        vals[c] = pd.to_numeric(ok[c], errors="coerce")
-    return vals.groupby([CFG, UKEY], sort=False)[list(cols)].mean()
-
-
 def _config_items(bi: pd.DataFrame, ci: pd.DataFrame, b: Config, c: Config,
                   matched_seeds: bool) -> ConfigResult:
     xb, xc = bi[bi[CFG] == b.label], ci[ci[CFG] == c.label]
@@ -389,10 +391,8 @@ def _config_items(bi: pd.DataFrame, ci: pd.DataFrame, b: Config, c: Config,
     return res
 
 
-def _metric(mb: pd.DataFrame, mc: pd.DataFrame, bl: str, cl: str, col: str, spec: Mapping[str, Any],
-            pol: Policy) -> MetricResult:
-    xb = mb.loc[bl, col] if bl in mb.index.get_level_values(0) else pd.Series(dtype=float)
-    xc = mc.loc[cl, col] if cl in mc.index.get_level_values(0) else pd.Series(dtype=float)
+def _metric(xb: pd.Series, xc: pd.Series, col: str, spec: Mapping[str, Any], pol: Policy) -> MetricResult:
+    """``xb``, ``xc``: per-utterance means of ``col`` (index: utterance key) of the two sides."""
     pair = pd.concat({"b": xb, "c": xc}, axis=1, join="inner")
     pair = pair[np.isfinite(pair.to_numpy(dtype=np.float64)).all(axis=1)]     # NaN/±inf: no pair
     d = (pair["c"] - pair["b"]).to_numpy(dtype=np.float64)
@@ -413,8 +413,7 @@ def one_sided_bounds(d: np.ndarray, pol: Policy) -> tuple[float, float]:
     (together the two-sided ``2·confidence − 1`` interval); NaN for fewer than two values."""
     if np.asarray(d).size < 2:
         return math.nan, math.nan
-    lo = bootstrap_mean_interval(d, pol.settings, alternative="greater")[0]
-    hi = bootstrap_mean_interval(d, pol.settings, alternative="less")[1]
+    (lo, _), (_, hi) = bootstrap_mean_intervals(d, pol.settings, ("greater", "less"))
     return float(lo), float(hi)
 
 
@@ -446,7 +445,7 @@ def _config_verdict(res: ConfigResult, pol: Policy) -> None:
         reasons.append(f"{res.new_failures} new failed item{'s' * (res.new_failures != 1)}")
     for m in res.metrics:
         if m.verdict == "regression":
-            reasons.append(f"{m.column} {fmt_signed(m.diff)} [{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]")
+            reasons.append(metric_brief(m))
     if res.latency.verdict == "regression":
         reasons.append(f"RTF ×{res.latency.ratio:.3g} [{res.latency.ratio_low:.3g}, {res.latency.ratio_high:.3g}]")
     if res.missing:
@@ -466,6 +465,11 @@ def _config_verdict(res: ConfigResult, pol: Policy) -> None:
         res.verdict = "improvement"
     else:
         res.verdict = "pass"
+
+
+def metric_brief(m: MetricResult) -> str:
+    """``column Δ [L, U]``, e.g. ``stoi −0.021 [−0.030, −0.012]``."""
+    return f"{m.column} {fmt_signed(m.diff)} [{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]"
 
 
 def fmt_signed(x: float, digits: int = 3) -> str:

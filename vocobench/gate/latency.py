@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats as sst
 
-from ..stats import BootstrapSettings, Config
+from ..stats import BootstrapSettings, Config, config_labels
 
 HARDWARE_KEYS = ("processor", "cpu_count", "affinity", "machine", "platform", "plugin")
 
@@ -110,9 +110,7 @@ def _timed(timing: pd.DataFrame, cfg: Config) -> pd.DataFrame:
     need = {"schedule", "sampler", "steps", "utt_id", "repeat", "rtf"}
     if timing is None or not len(timing) or not need <= set(timing.columns):
         return pd.DataFrame(columns=sorted(need))
-    t = timing[(timing["schedule"].astype(str) == cfg.schedule)
-               & (timing["sampler"].astype(str) == cfg.sampler)
-               & (pd.to_numeric(timing["steps"], errors="coerce") == cfg.steps)]
+    t = timing[config_labels(timing) == cfg.label]
     return t[pd.to_numeric(t["repeat"], errors="coerce") >= 0]
 
 

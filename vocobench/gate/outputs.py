@@ -13,14 +13,12 @@ import xml.etree.ElementTree as ET
 from datetime import datetime, timezone
 from typing import Any
 
-from ..store import dumps
+from pathlib import Path
+
+from ..store import dumps, write_atomic
 from .compare import Comparison, ConfigResult, MetricResult, fmt_signed
 
 LINE_SHOWN = 3                  # regressions named in the verdict line
-
-
-def _metric_brief(m: MetricResult) -> str:
-    return f"{m.column} {fmt_signed(m.diff)} [{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]"
 
 
 def _config_brief(c: ConfigResult) -> str:
@@ -54,7 +52,7 @@ def _cell(m: MetricResult) -> str:
     if m.n == 0:
         return "n/a"
     ci = f"[{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]" if math.isfinite(m.diff_low) else ""
-    p = f" p̃={m.p_holm:.2g}" if math.isfinite(m.p_holm) else ""
+    p = f" Holm p={m.p_holm:.2g}" if math.isfinite(m.p_holm) else ""
     flag = {"regression": " ❌", "improvement": " ✅", "inconclusive": " ❔"}.get(m.verdict, "")
     return f"{fmt_signed(m.diff)} {ci}{p}{flag}".strip()
 
@@ -115,8 +113,8 @@ def markdown(comp: Comparison) -> str:
     lines += ["#### Rule", "",
               f"Δ = candidate − baseline, mean over paired utterances (seeds averaged first); "
               f"[L, U] = one-sided {pol.confidence:g} bootstrap bounds (together a {two:.0%} "
-              f"interval); p̃ = Holm-adjusted two-sided Wilcoxon p. Regression: the bound on the "
-              f"worse side lies beyond the allowed drop and p̃ ≤ {pol.alpha:.3g}; any new failed "
+              f"interval); Holm p = Holm-adjusted two-sided Wilcoxon p. Regression: the bound on "
+              f"the worse side lies beyond the allowed drop and Holm p ≤ {pol.alpha:.3g}; any new failed "
               f"item is a regression; fewer than {pol.min_items} paired utterances is inconclusive.",
               f"Allowed drop: {allow or 'n/a'}; RTF +{pol.max_rtf_increase_pct:g} %. "
               f"Policy: {pol.source}.", ""]
@@ -181,10 +179,6 @@ def junit(comp: Comparison, suite: str = "vocobench.compare") -> str:
 
 def write_outputs(comp: Comparison, *, markdown_path: Any = None, json_path: Any = None,
                   junit_path: Any = None) -> None:
-    from pathlib import Path
-
-    from ..store import write_atomic
-
     for path, render in ((markdown_path, markdown), (json_path, to_json), (junit_path, junit)):
         if path:
             write_atomic(Path(path), render(comp))

@@ -25,7 +25,7 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 import pandas as pd
 
-from ..store import Run
+from ..store import FORMAT, Run
 
 DEMO_TESTSET = Path(__file__).resolve().parents[2] / "scenarios" / "pier-announcements" / "testset"
 VARIANTS_PER_FILE = 5
@@ -110,7 +110,7 @@ class Synthesiser:
         cols = {c.name: {"metric": m.name, "unit": c.unit, "higher_is_better": c.higher_is_better,
                          "range": list(c.valid_range)} for m in self.metrics for c in m.columns}
         fp = hashlib.sha256("".join(f"{v.id}\0{v.sha}\n" for v in variants).encode()).hexdigest()[:16]
-        return {"format": "vocobench-run/1", "frontend": self.plugin.frontend.to_dict(),
+        return {"format": FORMAT, "frontend": self.plugin.frontend.to_dict(),
                 "metrics": {m.name: m.variant() for m in self.metrics}, "columns": cols,
                 "length_policy": self.policy.describe(),
                 "dataset": {"fingerprint": fp, "n_utterances": len(variants)},

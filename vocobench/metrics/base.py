@@ -125,6 +125,8 @@ class Prepared:
     data: Any = None
     unavailable: str | None = None     # reason the reference cannot be scored at all
     reference: np.ndarray | None = field(default=None, repr=False)   # the array itself, no copy
+    # states of the reference cut to a shorter length (the "trim" policy), prepared on first use
+    trimmed: dict[int, Prepared] = field(default_factory=dict, repr=False)
 
 
 class Metric(ABC):
@@ -153,7 +155,12 @@ class Metric(ABC):
         self._check_options(source)
 
     def _check_options(self, source: str | None) -> None:
-        """Cross-option checks; raise InputError."""
+        """Cross-option checks; raise InputError (see :meth:`_option_error`)."""
+
+    def _option_error(self, key: str, message: str, source: str | None) -> InputError:
+        """InputError for option ``key`` of this metric, naming its config field and value."""
+        return InputError(message, source=source, field=f"{OPTIONS_FIELD}.{self.name}.{key}",
+                          value=self.options.get(key))
 
     # -- description -------------------------------------------------------------------------
     @property
@@ -210,14 +217,17 @@ class Metric(ABC):
         """Score ``estimate`` against the prepared reference. Raises MetricUnavailable.
 
         An estimate shorter than the prepared reference (the "trim" length policy) is scored
-        against the reference cut to its length, prepared again for this call.
+        against the reference cut to its length, prepared once per length and kept on ``state``.
         """
         est = _as_signal(estimate, "estimate")
         sr = _as_rate(sr)
         if not isinstance(state, Prepared) or state.metric != self.name:
             raise ValueError(f"state was not prepared by metric '{self.name}'")
         if sr == state.sample_rate and est.size < state.length and state.reference is not None:
-            state = self.prepare(state.reference[: est.size], sr)
+            cut = state.trimmed.get(est.size)
+            if cut is None:
+                cut = state.trimmed[est.size] = self.prepare(state.reference[: est.size], sr)
+            state = cut
         if sr != state.sample_rate or est.size != state.length:
             raise ValueError(f"estimate ({est.size} samples at {sr} Hz) does not match the "
                              f"prepared reference ({state.length} at {state.sample_rate} Hz); "

@@ -27,8 +27,9 @@ import numpy as np
 
 from ..errors import MetricUnavailable
 from .base import INF, Column, Metric, Option
-from .dsp import ENERGY_FLOOR, frame_energy_db, frame_signal, ms_to_samples, nearest_pow2
-from .warped_cepstrum import MCD_CONST, MelCepstralAnalyzer, mcd_from_cepstra, mel_alpha
+from .dsp import (ENERGY_FLOOR, frame_energy_db, frame_signal, mel_filterbank, ms_to_samples,
+                  nearest_pow2)
+from .warped_cepstrum import MelCepstralAnalyzer, mcd_from_cepstra, mel_alpha
 
 # Newton solve settings of the mel-cepstral analysis and the periodogram floor (our choices):
 # the floor is far below any audible content of a [-1, 1] signal; stopping at a Newton decrement
@@ -101,7 +102,7 @@ class _CepstralDistance(Metric):
 
         cost = cdist(ref, est, metric="euclidean")
         _, path = librosa.sequence.dtw(C=cost, backtrack=True)
-        per_pair = MCD_CONST * math.sqrt(2.0) * cost[path[:, 0], path[:, 1]]
+        per_pair = mcd_from_cepstra(ref[path[:, 0]], est[path[:, 1]])
         return {prefix: float(per_pair.mean()), f"{prefix}_frames": float(len(path))}
 
     def _frames_column(self) -> Column:
@@ -140,6 +141,8 @@ class MelCepstralDistortion(_CepstralDistance):
     def __init__(self, options=None, *, source=None):
         super().__init__(options, source=source)
         self._analyzers: dict[int, MelCepstralAnalyzer] = {}
+        if self.options["alignment"] == "dtw":
+            self.libraries = ("librosa",)      # version recorded by Metric.variant()
 
     @property
     def columns(self) -> tuple[Column, ...]:
@@ -173,9 +176,7 @@ class MelCepstralDistortion(_CepstralDistance):
         if sample_rate:
             out["alpha"] = self.alpha_for(sample_rate)
         if self.options["alignment"] == "dtw":
-            from .base import _version
-
-            out["dtw"] = f"librosa.sequence.dtw (librosa {_version('librosa')})"
+            out["dtw"] = "librosa.sequence.dtw"
         return out
 
 
@@ -200,12 +201,8 @@ class MfccDistortion(_CepstralDistance):
     }
 
     def _check_options(self, source):
-        from ..errors import InputError
-
         if self.options["n_mfcc"] > self.options["n_mels"]:
-            raise InputError("n_mfcc cannot exceed n_mels", source=source,
-                             field="metrics.options.mcd_mfcc.n_mfcc",
-                             value=self.options["n_mfcc"])
+            raise self._option_error("n_mfcc", "n_mfcc cannot exceed n_mels", source)
 
     @property
     def columns(self) -> tuple[Column, ...]:
@@ -221,7 +218,7 @@ class MfccDistortion(_CepstralDistance):
 
         spec = np.fft.rfft(self._windowed(frames), axis=-1)
         power = spec.real ** 2 + spec.imag ** 2
-        fb = librosa.filters.mel(sr=sr, n_fft=frames.shape[1], n_mels=self.options["n_mels"])
+        fb = mel_filterbank(sr, frames.shape[1], self.options["n_mels"])
         mel_db = librosa.power_to_db((power @ fb.T).T, ref=1.0, amin=MFCC_POWER_FLOOR,
                                      top_db=None)
         mfcc = librosa.feature.mfcc(S=mel_db, n_mfcc=n_mfcc, dct_type=2, norm="ortho")

@@ -1,6 +1,7 @@
 """Small signal helpers shared by the metrics: framing, frame energy, STFT, resampling."""
 from __future__ import annotations
 
+import functools
 import math
 from math import gcd
 
@@ -34,6 +35,18 @@ def frame_energy_db(frames: np.ndarray) -> np.ndarray:
     """10·log10 of the sum of squares of each (unwindowed) frame."""
     f = np.asarray(frames, dtype=np.float64)
     return 10.0 * np.log10(np.einsum("fl,fl->f", f, f) + ENERGY_FLOOR)
+
+
+@functools.lru_cache(maxsize=32)
+def mel_filterbank(sr: int, n_fft: int, n_mels: int, fmin: float = 0.0,
+                   fmax: float | None = None) -> np.ndarray:
+    """``librosa.filters.mel`` (Slaney mel, Slaney area norm, float32), built once per argument
+    set; (n_mels, n_fft//2 + 1), read-only."""
+    import librosa
+
+    fb = librosa.filters.mel(sr=sr, n_fft=n_fft, n_mels=n_mels, fmin=fmin, fmax=fmax)
+    fb.setflags(write=False)
+    return fb
 
 
 def stft_power(x: np.ndarray, n_fft: int, hop_length: int, win_length: int | None = None,

@@ -22,11 +22,16 @@ STOI_RATE = 10000          # Taal et al. 2011: signals are resampled to 10 kHz (
 
 class _Stoi(Metric):
     extended: ClassVar[bool]
+    column_description: ClassVar[str]
     libraries = ("pystoi",)
 
     @property
     def sample_rate(self) -> int:
         return STOI_RATE
+
+    @property
+    def columns(self) -> tuple[Column, ...]:
+        return (Column(self.name, "score", True, (-1.0, 1.0), self.column_description),)
 
     def _resampled(self, x: np.ndarray, sr: int) -> np.ndarray:
         from pystoi import utils
@@ -72,10 +77,7 @@ class Stoi(_Stoi):
     name = "stoi"
     description = "STOI intelligibility (Taal et al. 2011), 0..1"
     extended = False
-
-    @property
-    def columns(self) -> tuple[Column, ...]:
-        return (Column("stoi", "score", True, (-1.0, 1.0), "short-time objective intelligibility"),)
+    column_description = "short-time objective intelligibility"
 
 
 class ExtendedStoi(_Stoi):
@@ -84,7 +86,4 @@ class ExtendedStoi(_Stoi):
     name = "estoi"
     description = "extended STOI (Jensen & Taal 2016), 0..1"
     extended = True
-
-    @property
-    def columns(self) -> tuple[Column, ...]:
-        return (Column("estoi", "score", True, (-1.0, 1.0), "extended STOI"),)
+    column_description = "extended STOI"

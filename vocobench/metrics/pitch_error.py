@@ -21,11 +21,10 @@ import math
 from typing import Any
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from ..errors import MetricUnavailable
 from .base import INF, Column, Metric, Option
-from .dsp import frame_energy_db, ms_to_samples
+from .dsp import frame_energy_db, frame_signal, ms_to_samples
 
 CENTS_PER_OCTAVE = 1200.0
 GPE_RATIO = 0.2                 # gross error: > 20 % off (Rabiner et al. 1976)
@@ -50,11 +49,8 @@ class PitchError(Metric):
     }
 
     def _check_options(self, source):
-        from ..errors import InputError
-
         if self.options["fmin"] >= self.options["fmax"]:
-            raise InputError("fmin must be below fmax", source=source,
-                             field="metrics.options.f0.fmin", value=self.options["fmin"])
+            raise self._option_error("fmin", "fmin must be below fmax", source)
 
     @property
     def columns(self) -> tuple[Column, ...]:
@@ -81,7 +77,7 @@ class PitchError(Metric):
         f0 = librosa.yin(x, fmin=self.options["fmin"], fmax=self.options["fmax"], sr=sr,
                          frame_length=frame, hop_length=hop, center=True,
                          trough_threshold=YIN_TROUGH_THRESHOLD)
-        frames = sliding_window_view(np.pad(x, frame // 2), frame)[::hop][: f0.size]
+        frames = frame_signal(np.pad(x, frame // 2), frame, hop)[: f0.size]
         energy = frame_energy_db(frames)
         loud = energy >= energy.max() + self.options["silence_db"]
         periodic = _lag_correlation(frames, np.rint(sr / f0).astype(int)) >= \

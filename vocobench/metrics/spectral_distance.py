@@ -9,7 +9,7 @@ import numpy as np
 
 from ..errors import MetricUnavailable
 from .base import INF, Column, Metric, Option
-from .dsp import stft_power
+from .dsp import mel_filterbank, stft_power
 
 # Log-spectral distance floor on |X|² (our choice): keeps log(0) out of silent bins.
 LSD_POWER_FLOOR = 1e-10
@@ -118,12 +118,8 @@ class LogMelL1(Metric):
     }
 
     def _check_options(self, source):
-        from ..errors import InputError
-
         if self.options["win_length"] > self.options["n_fft"]:
-            raise InputError("win_length cannot exceed n_fft", source=source,
-                             field="metrics.options.logmel_l1.win_length",
-                             value=self.options["win_length"])
+            raise self._option_error("win_length", "win_length cannot exceed n_fft", source)
 
     @property
     def columns(self) -> tuple[Column, ...]:
@@ -133,14 +129,11 @@ class LogMelL1(Metric):
         return min(self.options["fmax"], sr / 2.0)
 
     def _log_mel(self, x: np.ndarray, sr: int) -> np.ndarray:
-        import librosa
-
         o = self.options
         if o["fmin"] >= self._fmax(sr):
             raise MetricUnavailable(f"logmel_l1: fmin {o['fmin']} Hz is above sr/2")
         mag = np.sqrt(stft_power(x, o["n_fft"], o["hop_length"], o["win_length"]))
-        fb = librosa.filters.mel(sr=sr, n_fft=o["n_fft"], n_mels=o["n_mels"], fmin=o["fmin"],
-                                 fmax=self._fmax(sr))
+        fb = mel_filterbank(sr, o["n_fft"], o["n_mels"], o["fmin"], self._fmax(sr))
         return np.log(np.maximum(mag @ fb.T, HIFIGAN_LOG_CLAMP))
 
     def _prepare(self, reference, sr):

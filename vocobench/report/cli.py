@@ -3,9 +3,10 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
+from typing import Any
 
 from ..errors import InputError
+from ..stats import METHODS
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -27,11 +28,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--confidence", type=float, metavar="LEVEL", help="interval level, e.g. 0.95")
     parser.add_argument("--resamples", type=int, metavar="N", help="bootstrap resamples")
     parser.add_argument("--seed", type=int, metavar="N", help="bootstrap seed")
-    parser.add_argument("--method", choices=("BCa", "percentile", "basic"), help="bootstrap interval")
+    parser.add_argument("--method", choices=METHODS, help="bootstrap interval")
     parser.add_argument("--worst", type=int, metavar="N", help="worst utterances listed per configuration")
     parser.add_argument("--no-plots", action="store_true", help="skip the plots")
     parser.add_argument("--no-page", action="store_true", help="skip the listening page")
-    parser.add_argument("--quiet", action="store_true", help="print nothing on success")
+    parser.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
 
 
 def _margins(pairs: list[str]) -> dict[str, float]:
@@ -60,14 +61,13 @@ def _budget(text: str | None) -> float | bool | None:
                          value=text) from None
 
 
-def build_options(args: argparse.Namespace):
-    """The run's ``[decide]`` options with the flags applied."""
+def build_options(args: argparse.Namespace, run: Any = None):
+    """The run's ``[decide]`` options with the flags applied (``run``: the loaded run, else
+    ``args.run_dir`` is loaded)."""
     from ..store import load_run
-    from .options import ReportOptions
+    from .render import options_for
 
-    run = load_run(args.run_dir)
-    base = ReportOptions.from_mapping(run.manifest.get("decide"),
-                                      source=str(Path(args.run_dir) / "manifest.json"))
+    base = options_for(run if run is not None else load_run(args.run_dir), None)
     margins = {**base.margins, **_margins(args.margin)} if args.margin else None
     opts = base.replace(reference=args.reference, metrics=args.metrics, margins=margins,
                         margin_rel=args.margin_rel, primary=args.primary,
@@ -81,11 +81,12 @@ def build_options(args: argparse.Namespace):
 
 def main(args: argparse.Namespace) -> int:
     """Run the report; returns 0, or 2 after printing an input error."""
+    from ..store import load_run
     from .render import render_report
 
     try:
-        opts = build_options(args)
-        render_report(args.run_dir, opts, echo=not args.quiet)
+        run = load_run(args.run_dir)
+        render_report(run, build_options(args, run), echo=not args.quiet)
     except InputError as e:
         print(f"vocobench report: error: {e}", file=sys.stderr)
         return 2

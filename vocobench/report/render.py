@@ -19,8 +19,8 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..stats import BootstrapSettings, Config, RunStatistics, configurations, summarise
-from ..store import load_run, write_atomic
+from ..stats import BootstrapSettings, Config, RunStatistics, summarise
+from ..store import Run, load_run, write_atomic
 from .decide import CAUTION, Recommendation, recommend
 from .listening import default_choice, fewest_steps, write_listening_page
 from .options import ReportOptions
@@ -46,12 +46,9 @@ class ReportResult:
     plots: list[Path] = field(default_factory=list)
     page_files: list[Path] = field(default_factory=list)
 
-    @property
-    def written(self) -> list[Path]:
-        return [*self.paths.values(), *self.plots, *self.page_files]
-
 
 def options_for(run: Any, options: ReportOptions | None) -> ReportOptions:
+    """``options``, or else the run's ``[decide]`` table (manifest ``decide``)."""
     if options is not None:
         return options
     return ReportOptions.from_mapping(run.manifest.get("decide"),
@@ -86,27 +83,23 @@ def check_options(opts: ReportOptions, run: Any) -> Config | None:
     return ref
 
 
-def render_report(run_dir: str | Path, options: ReportOptions | None = None,
+def render_report(run_dir: str | Path | Run, options: ReportOptions | None = None,
                   echo: bool = True) -> ReportResult:
     """Compute statistics of a stored run and write every report file.
 
     Parameters
     ----------
-    run_dir : a run directory (``vocobench-run/1``).
+    run_dir : a run directory (``vocobench-run/1``), or that run already loaded.
     options : decision options; default: the run's ``[decide]`` table (manifest ``decide``).
     echo : print the terminal table, the recommendation and the paths written.
     """
-    run = load_run(run_dir)
+    run = run_dir if isinstance(run_dir, Run) else load_run(run_dir)
     run_dir = Path(run.path)
     opts = options_for(run, options)
     ref = check_options(opts, run)
     settings = BootstrapSettings(opts.confidence, opts.resamples, opts.seed, opts.method)
-    if ref is not None and len(run.items):
-        have = [c.label for c in configurations(run.manifest, run.items)]
-        if ref.label not in have:
-            raise InputError("configuration not in this run; valid: " + ", ".join(have),
-                             source=opts.source, field="decide.reference", value=opts.reference)
-    st = summarise(run, reference=ref, settings=settings)
+    st = summarise(run, reference=ref, settings=settings, reference_source=opts.source,
+                   reference_field="decide.reference")
     labels = {c.label for c in st.configs}
     for lab in opts.listen or ():
         if Config.parse(lab).label not in labels:

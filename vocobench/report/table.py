@@ -39,10 +39,9 @@ def build_table(st: RunStatistics) -> pd.DataFrame:
     eligible = (table["failed"] == 0).to_numpy()
     for col, spec in st.columns.items():
         m = st.metrics[st.metrics["column"] == col].set_index("config").reindex(table["config"])
-        for k, src in (("mean", "mean"), ("ci_low", "ci_low"), ("ci_high", "ci_high"), ("n", "n"),
-                       ("diff", "diff"), ("diff_low", "diff_low"), ("diff_high", "diff_high"),
-                       ("diff_bound", "diff_bound"), ("p", "p"), ("p_holm", "p_holm")):
-            table[f"{col}_{k}"] = m[src].to_numpy()
+        for k in ("mean", "ci_low", "ci_high", "n", "diff", "diff_low", "diff_high", "diff_bound",
+                  "p", "p_holm"):
+            table[f"{col}_{k}"] = m[k].to_numpy()
         cost = np.where(eligible, table["rtf_median"].to_numpy(dtype=float), np.nan)
         table[f"{col}_front"] = pareto_mask(cost, table[f"{col}_mean"].to_numpy(dtype=float),
                                             bool(spec["higher_is_better"]))
@@ -52,31 +51,34 @@ def build_table(st: RunStatistics) -> pd.DataFrame:
 
 # ---------------------------------------------------------------- cell formatting
 
-def fmt(x: Any, sig: int = 4, sign: bool = False) -> str:
-    """Number with ``sig`` significant digits; NaN/None as a dash."""
+def _finite(x: Any) -> float | None:
+    """``x`` as a finite float, else None (NaN, ±inf, None, not a number)."""
     try:
         v = float(x)
     except (TypeError, ValueError):
-        return NA
-    if not math.isfinite(v):
+        return None
+    return v if math.isfinite(v) else None
+
+
+def fmt(x: Any, sig: int = 4, sign: bool = False) -> str:
+    """Number with ``sig`` significant digits; NaN/None as a dash."""
+    v = _finite(x)
+    if v is None:
         return NA
     return f"{v:+.{sig}g}" if sign else f"{v:.{sig}g}"
 
 
 def fmt_p(p: Any) -> str:
-    try:
-        v = float(p)
-    except (TypeError, ValueError):
-        return NA
-    if not math.isfinite(v):
+    v = _finite(p)
+    if v is None:
         return NA
     return "<0.001" if v < 0.001 else f"{v:.3f}"
 
 
 def interval(est: Any, lo: Any, hi: Any, sign: bool = False, sig: int = 4) -> str:
-    if fmt(est) == NA:
+    if _finite(est) is None:
         return NA
-    if fmt(lo) == NA or fmt(hi) == NA:
+    if _finite(lo) is None or _finite(hi) is None:
         return fmt(est, sig, sign)
     return f"{fmt(est, sig, sign)} [{fmt(lo, 3, sign)}, {fmt(hi, 3, sign)}]"
 
