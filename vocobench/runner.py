@@ -192,7 +192,7 @@ def _check_decide(cfg: RunConfig, metrics: list[Any]) -> None:
     except ImportError:
         return
     opts = ReportOptions.from_mapping(cfg.decide, source=cfg.source)
-    columns = {c.name for m in metrics for c in m.columns}
+    columns = {c.name for m in metrics for c in m.columns if isinstance(c.higher_is_better, bool)}
     named = [*(opts.metrics or ()), *opts.margins, *([opts.primary] if opts.primary else [])]
     for name in named:
         if name not in columns:
