@@ -4,7 +4,7 @@ Plain script: ``python bench/bench_harness.py [--quick]``. Uses the demo scenari
 (scenarios/pier-announcements) and vocoder (the analytic denoiser), metrics mcd, pesq_wb and stoi,
 and prints, as ratios against their targets:
 
-1. **overhead** — a full sweep with ``workers = 1`` (``vocobench.runner.run``: test-set scan and
+1. **overhead** — a full sweep with ``workers = 1`` (``vocobench.sweep.run``: test-set scan and
    hashing, manifest, per-item journal with fsync, saved FLAC outputs, tables; the timing phase is
    measured and shown apart, it is not overhead) against a bare loop that calls the same vocoder
    through the same sampler and the same metric functions on the same items, also with one BLAS
@@ -19,7 +19,7 @@ and prints, as ratios against their targets:
    gain changes, so their hashes differ), each sweep in a fresh child process
    (``resource.getrusage``: the child's own peak and, with 2 workers, its pool's). Target ≤ 1.2×.
 
-Phases are timed by wrapping ``runner.run_jobs``, ``runner.run_timing`` and ``Journal.append`` in
+Phases are timed by wrapping the sweep's ``run_jobs``, ``run_timing`` and ``Journal.append`` in
 this process (instrumentation only). Other load on the machine distorts wall times: when a
 single-process run's wall time exceeds its CPU time by more than 5 %, the script says so and
 judges the single-process figures on CPU time; the speed-up then has a CPU-time projection.
@@ -88,22 +88,27 @@ def memory_config(testset: Path):
 
 
 # -- instrumentation ----------------------------------------------------------------------------
-WRAPPED = ("run_jobs", "run_timing", "prepare", "load_testset", "job_key", "save_audio",
-           "write_tables")
+# name -> the vocobench.sweep module whose global the sweep calls it through
+WRAPPED = {"run_jobs": "orchestrate", "run_timing": "orchestrate", "prepare": "orchestrate",
+           "load_testset": "plan", "job_key": "plan", "save_audio": "worker",
+           "write_tables": "orchestrate"}
 
 
 class Phases:
-    """Wall and CPU time spent in runner functions (summed over calls), and item-journal times."""
+    """Wall and CPU time spent in sweep functions (summed over calls), and item-journal times."""
 
     def __init__(self) -> None:
-        from vocobench import runner, store
+        import importlib
+
+        from vocobench import store
 
         self.wall: dict[str, float] = {}
         self.cpu: dict[str, float] = {}
         self.started: dict[str, float] = {}
         self.appends: list[float] = []
-        for name in WRAPPED:
-            setattr(runner, name, self._timed(name, getattr(runner, name)))
+        for name, where in WRAPPED.items():
+            mod = importlib.import_module(f"vocobench.sweep.{where}")
+            setattr(mod, name, self._timed(name, getattr(mod, name)))
         self._timed("journal", store.Journal.append)     # registers the counters
         original = store.Journal.append
         phases = self
@@ -146,7 +151,7 @@ def clock() -> Iterator[dict[str, float]]:
 
 
 def harness_run(cfg, out: Path, phases: Phases, workers: int) -> dict[str, Any]:
-    from vocobench.runner import run
+    from vocobench.sweep import run
 
     shutil.rmtree(out, ignore_errors=True)
     phases.reset()
@@ -170,7 +175,7 @@ def bare_loop(cfg, testset) -> dict[str, float]:
     from vocobench.analytic import AnalyticDenoiser
     from vocobench.contracts import Plugin
     from vocobench.metrics import LengthPolicy, build_metrics
-    from vocobench.runner import item_rng
+    from vocobench.sweep import item_rng
     from vocobench.testset import load_audio
 
     with clock() as t, threadpool_limits(1):
@@ -217,7 +222,7 @@ def measure_overhead(work: Path, phases: Phases, quick: bool) -> dict[str, Any]:
 
 
 def measure_rerun(work: Path, phases: Phases, first: dict[str, Any]) -> dict[str, Any]:
-    from vocobench.runner import run
+    from vocobench.sweep import run
 
     phases.reset()
     with clock() as t:
@@ -271,7 +276,7 @@ def make_copies(src: Path, dst: Path, copies: int) -> Path:
 
 def rss_child(testset: str, out: str, workers: int) -> None:
     """Child process: one sweep, then print peak RSS (self, and its pool) as JSON."""
-    from vocobench.runner import run
+    from vocobench.sweep import run
 
     cfg = memory_config(Path(testset))
     run(cfg, out, progress=False, report=False, workers=workers)
@@ -310,7 +315,7 @@ def _cache_everything_mb(testset: Path) -> float:
     """What a sweep would hold if it kept every utterance's reference work (for scale)."""
     import pickle
 
-    from vocobench.runner import Worker, prepare
+    from vocobench.sweep import Worker, prepare
 
     setup = prepare(memory_config(testset), Path(tempfile.mkdtemp()))
     w = Worker(setup, cache_size=1)

@@ -108,7 +108,7 @@ def test_external_vocoder_runs_through_the_cli(tmp_path, speech_folder):
 
 def test_external_denoiser_runs_with_builtin_samplers(tmp_path, speech_folder):
     from vocobench.config import load_config
-    from vocobench.runner import run
+    from vocobench.sweep import run
 
     cfg = _config(tmp_path, f"""
         [vocoder]

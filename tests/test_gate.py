@@ -1,4 +1,4 @@
-"""Release regression gate on real (tiny) run directories made by vocobench.runner.run.
+"""Release regression gate on real (tiny) run directories made by vocobench.sweep.run.
 
 Sources of the expectations: the verdict rule and file formats documented in
 vocobench/gate/compare.py and vocobench/gate/baseline.py (our own contracts); reference
@@ -23,11 +23,11 @@ from scipy import stats as sst
 from vocobench.cli import main as cli_main
 from vocobench.config import load_config
 from vocobench.errors import InputError
-from vocobench.gate import (BASELINE_FORMAT, Policy, assert_no_regression, compare_runs, freeze,
-                            junit, load_policy, markdown, verdict_line)
+from vocobench.gate import (BASELINE_FORMAT, Policy, ab_compare, assert_no_regression, compare_runs,
+                            freeze, junit, load_policy, markdown, verdict_line)
 from vocobench.gate.policy import parse_allow_option
-from vocobench.runner import run
 from vocobench.store import load_run
+from vocobench.sweep import run
 
 DEMO = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "testset"
 ALL6 = [f"pier0{i}.wav" for i in range(1, 7)]
@@ -321,3 +321,15 @@ def test_ab_mode_flags_a_slower_candidate(tmp_path, capsys):
     dur = sf.info(str(DEMO / ALL6[0])).duration
     assert lat["candidate_rtf"] - lat["baseline_rtf"] >= 2 * 0.03 / dur * 0.9
     assert lat["ratio_low"] > 1.1 and cfg["verdict"] == "regression"
+
+
+def test_ab_mode_checks_stored_features(tmp_path):
+    # A/B loads features as the sweep does: stored ones must have the front-end's mel bands
+    base = _config(tmp_path, "fast", ALL6[:1], steps=(2,))
+    cand = _config(tmp_path, "bad", ALL6[:1], steps=(2,))
+    ts = tmp_path / "ts_bad"
+    np.save(ts / "pier01.npy", np.zeros((40, 200), dtype=np.float32))
+    (ts / "manifest.csv").write_text("id,path,features\npier01,pier01.wav,pier01.npy\n")
+    cand.write_text(cand.read_text().replace('path = "ts_bad"', 'path = "ts_bad/manifest.csv"'))
+    with pytest.raises(InputError, match="wrong number of mel bands"):
+        ab_compare(base, cand, repeats=2)

@@ -201,7 +201,7 @@ def test_column_is_a_plain_record():
 
 
 def test_metrics_and_states_pickle():
-    # The runner may ship metrics and prepared states to worker processes (dask).
+    # The sweep may ship metrics and prepared states to worker processes (dask).
     import pickle
 
     x = speech_like(SR, 1.0)

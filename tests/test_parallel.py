@@ -1,5 +1,5 @@
-"""Parallel sweeps (vocobench.parallel): a local spawn pool and a Dask LocalCluster must give the
-same items as the serial sweep, journal as they go, and resume.
+"""Parallel sweeps (vocobench.sweep.local, vocobench.sweep.dask_backend): a local spawn pool and
+a Dask LocalCluster must give the same items as the serial sweep, journal as they go, and resume.
 
 The reference for every check here is the serial sweep itself: a parallel run is correct when
 its journal holds the same keys with the same audio hashes and metric values (common practice,
@@ -16,12 +16,11 @@ from pathlib import Path
 
 import pytest
 
-from vocobench import parallel
 from vocobench.config import parse_config
 from vocobench.errors import InputError
-from vocobench.parallel import WorkerDied, chunk_jobs, run_parallel
-from vocobench.runner import Job, run
 from vocobench.store import ITEMS, read_jsonl
+from vocobench.sweep import Job, WorkerDied, chunk_jobs, run
+from vocobench.sweep import dask_backend, local, orchestrate      # patched below
 
 DEMO_SET = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "testset"
 UTTERANCES = ("pier01", "pier03")          # the two shortest-but-one: 2.7 s and 2.4 s
@@ -63,18 +62,16 @@ def serial(root) -> Path:
 def local2(root) -> Path:
     import multiprocessing
 
-    from vocobench import runner
-
     alive: list[int] = []
-    timing = runner.run_timing
+    timing = orchestrate.run_timing
 
     def spy(*args, **kwargs):                  # the timing phase must run with no pool left
         alive.append(len(multiprocessing.active_children()))
         return timing(*args, **kwargs)
 
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(runner, "run_timing", spy)
-        mp.setattr(parallel, "MAIN_COMPUTES", False)   # two spawned helpers do every item
+        mp.setattr(orchestrate, "run_timing", spy)
+        mp.setattr(local, "MAIN_COMPUTES", False)   # two spawned helpers do every item
         out = run(_config(root), root / "local2", progress=False, report=False, workers=2)
     assert alive == [0]
     return out
@@ -141,7 +138,7 @@ def test_worker_input_error_reaches_the_caller(root, monkeypatch):
     (bad / "testset" / "manifest.csv").write_text("id,path,features\npier01,pier01.wav,pier01.npy\n")
     cfg = _config(bad)
     cfg.testset = bad / "testset" / "manifest.csv"
-    monkeypatch.setattr(parallel, "MAIN_COMPUTES", False)      # the error must come from a helper
+    monkeypatch.setattr(local, "MAIN_COMPUTES", False)      # the error must come from a helper
     with pytest.raises(InputError, match="wrong number of mel bands"):
         run(cfg, bad / "out", progress=False, report=False, workers=2)
 
@@ -162,7 +159,7 @@ def test_dead_worker_is_reported_and_finished_items_are_kept(root, tmp_path, mon
     cfg.target, cfg.options, cfg.metrics = "crashing:Crashing", {}, ["stoi"]
     cfg.search_path = [tmp_path]
     out = tmp_path / "out"
-    monkeypatch.setattr(parallel, "MAIN_COMPUTES", False)      # never crash the test process
+    monkeypatch.setattr(local, "MAIN_COMPUTES", False)      # never crash the test process
     with pytest.raises(WorkerDied, match="exit code 7"):
         run(cfg, out, progress=False, report=False, workers=2)
     done = read_jsonl(out / ITEMS)
@@ -188,23 +185,20 @@ def test_chunks_follow_factoring_within_utterances():
 
 
 @pytest.mark.parametrize("workers", [0, -2, 1.5, True])
-def test_bad_worker_count_is_an_input_error(workers):
+def test_bad_worker_count_is_an_input_error(root, tmp_path, workers):
     with pytest.raises(InputError, match="positive integer"):
-        run_parallel(None, [], lambda r: None, workers=workers, scheduler=None)
+        run(_config(root), tmp_path / "out", progress=False, report=False, workers=workers)
+    assert not (tmp_path / "out").exists()                       # checked before anything runs
 
 
 def test_missing_dask_is_an_input_error(monkeypatch):
-    from vocobench import parallel
-
     monkeypatch.setitem(sys.modules, "dask.distributed", None)   # as if not installed
     with pytest.raises(InputError, match=r"pip install 'vocobench\[dask\]'"):
-        parallel.run_dask(None, [Job("k", 0, 0, 0)], lambda r: None, "tcp://127.0.0.1:1")
+        dask_backend.run_dask(None, [Job("k", 0, 0, 0)], lambda r: None, "tcp://127.0.0.1:1")
 
 
 def test_unreachable_scheduler_is_an_input_error(monkeypatch):
     pytest.importorskip("distributed")
-    from vocobench import parallel
-
-    monkeypatch.setattr(parallel, "DASK_CONNECT_TIMEOUT_S", 1.0)
+    monkeypatch.setattr(dask_backend, "DASK_CONNECT_TIMEOUT_S", 1.0)
     with pytest.raises(InputError, match="cannot reach the Dask scheduler"):
-        parallel.run_dask(None, [Job("k", 0, 0, 0)], lambda r: None, "tcp://127.0.0.1:9")
+        dask_backend.run_dask(None, [Job("k", 0, 0, 0)], lambda r: None, "tcp://127.0.0.1:9")

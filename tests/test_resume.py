@@ -20,8 +20,8 @@ import pytest
 
 from vocobench.config import parse_config
 from vocobench.errors import InputError
-from vocobench.runner import prepare, run
 from vocobench.store import RunLock, load_run
+from vocobench.sweep import prepare, run
 
 DEMO = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "testset"
 QUALITY = ["key", "utt_id", "schedule", "sampler", "steps", "seed", "status", "audio_sha", "stoi"]

@@ -20,7 +20,7 @@ _EXPORTS = {
     "MelFrontEnd": "frontend", "NoiseSchedule": "schedules", "Plugin": "contracts",
     "load_plugin": "contracts", "Vocoder": "contracts", "Denoiser": "contracts",
     "load_config": "config", "parse_config": "config", "RunConfig": "config",
-    "run": "runner", "prepare": "runner", "check_target": "check", "check_object": "check",
+    "run": "sweep", "prepare": "sweep", "check_target": "check", "check_object": "check",
     "load_testset": "testset", "load_run": "store", "AnalyticDenoiser": "analytic",
     "render_report": "report",
 }

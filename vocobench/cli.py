@@ -26,7 +26,7 @@ def _option(text: str) -> tuple[str, Any]:
 
 def cmd_run(a: argparse.Namespace) -> int:
     from .config import load_config
-    from .runner import run
+    from .sweep import run
 
     cfg = load_config(a.config)
     out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,

@@ -30,6 +30,7 @@ from typing import Any, Callable, Mapping, Protocol, Sequence, runtime_checkable
 
 import numpy as np
 
+from .arrays import to_numpy
 from .errors import InputError
 from .frontend import MelFrontEnd
 from .samplers import available_samplers, make_plan, run_plan
@@ -53,16 +54,6 @@ class Denoiser(Protocol):
     conditioning: str
 
     def predict_noise(self, x_t: np.ndarray, features: np.ndarray, t: np.ndarray) -> Any: ...
-
-
-def to_numpy(x: Any) -> np.ndarray:
-    """Array-like (numpy, list, torch tensor on any device or dtype) to a numpy array."""
-    if hasattr(x, "detach") and hasattr(x, "cpu"):        # torch.Tensor, without importing torch
-        x = x.detach().cpu()
-        if not str(getattr(x, "dtype", "")).startswith(("torch.float64", "torch.int")):
-            x = x.float()
-        return x.numpy()
-    return np.asarray(x)
 
 
 # -- loading -------------------------------------------------------------------------------
@@ -126,7 +117,7 @@ def instantiate(obj: Any, options: Mapping[str, Any], target: str = "") -> Any:
     return obj(**options)
 
 
-# -- the adapter the runner drives ---------------------------------------------------------
+# -- the adapter the sweep drives ----------------------------------------------------------
 def as_training_schedule(ts: Any, source: str = "training_schedule") -> NoiseSchedule | None:
     """A declared training schedule: a NoiseSchedule, a β array-like (torch too) or None."""
     if ts is None or isinstance(ts, NoiseSchedule):

@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from .contracts import to_numpy
+from .arrays import to_numpy
 from .errors import ItemFailure
 
 

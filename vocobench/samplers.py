@@ -18,6 +18,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
+from .arrays import to_numpy
 from .errors import InputError
 from .schedules import NoiseSchedule
 
@@ -113,8 +114,6 @@ def run_plan(plan: StepPlan, predict: Callable[[np.ndarray, np.ndarray, np.ndarr
     ``predict(x_t, features, t)`` returns ε̂ with the shape of ``x_t``. Noise is drawn from ``rng``
     in a fixed order (x_N, then each stochastic step), so one seed gives bit-identical output.
     """
-    from .contracts import to_numpy
-
     feats = np.asarray(features, dtype=dtype)
     batch = feats.shape[0]
     x = rng.standard_normal((batch, n_samples))

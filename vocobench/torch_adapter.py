@@ -191,7 +191,7 @@ class TorchModel:
         floating parameters and the inputs it gets are cast to it.
     compile : bool
         Wrap the module with ``torch.compile(**compile_options)`` on the *first call*, not here, so
-        the runner's warm-up calls take the compilation. Pass ``compile_options={"dynamic": True}``
+        the sweep's warm-up calls take the compilation. Pass ``compile_options={"dynamic": True}``
         to avoid one recompilation per input length.
     inference_mode : bool
         Run under ``torch.inference_mode()`` (default) or ``torch.no_grad()``.

@@ -18,7 +18,7 @@ from .pytest_helper import assert_no_regression
 
 
 def ab_compare(*args, **kwargs):  # type: ignore[no-untyped-def]
-    """See :func:`vocobench.gate.ab.ab_compare` (imported lazily: it loads the runner)."""
+    """See :func:`vocobench.gate.ab.ab_compare` (imported lazily: it loads the sweep)."""
     from .ab import ab_compare as _ab
 
     return _ab(*args, **kwargs)

@@ -22,8 +22,7 @@ import numpy as np
 
 from ..config import RunConfig, load_config
 from ..errors import InputError
-from ..runner import Setup, Worker, item_rng, prepare, timing_utterances
-from ..testset import load_audio, load_features
+from ..sweep import Setup, Worker, item_rng, load_utterance, prepare, timing_utterances
 from ..timing import hardware, thread_limit, time_call
 from .compare import Comparison, ConfigResult, _config_verdict
 from .latency import LatencyResult, latency_verdict, ratio_of_medians
@@ -37,12 +36,6 @@ DEFAULT_AB_REPEATS = 10
 def _setup(cfg: "RunConfig | str | Path") -> Setup:
     c = cfg if isinstance(cfg, RunConfig) else load_config(cfg)
     return prepare(c, out_dir=c.output_dir or Path("reports") / "ab")
-
-
-def _features(setup: Setup, i: int) -> np.ndarray:
-    u = setup.testset.utterances[i]
-    f = load_features(u)
-    return f if f is not None else setup.plugin.frontend(load_audio(u, setup.plugin.sample_rate))
 
 
 def ab_compare(baseline: "RunConfig | str | Path", candidate: "RunConfig | str | Path",
@@ -131,7 +124,7 @@ def _time_pair(sb: Setup, sc: Setup, wb: Worker, wc: Worker, pb: int, pc: int,
         calls = []
         for side, s, w, p, i in (("baseline", sb, wb, pb, ib), ("candidate", sc, wc, pc, ic)):
             try:
-                feats = _features(s, i)
+                _, feats = load_utterance(s, i)
                 fn = w.synth(p)
             except InputError:
                 raise

@@ -1,0 +1,205 @@
+"""The plan of a sweep: grid points, jobs and their cache keys, validated before anything is written.
+
+Jobs are utterance × schedule × sampler × steps × seed. :func:`prepare` validates everything
+(config, plug-in, test set, metrics, grid, ``[decide]``) and builds the job list; it writes nothing.
+"""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from .. import __version__
+from ..config import RunConfig
+from ..contracts import Plugin, load_plugin
+from ..errors import InputError
+from ..schedules import NoiseSchedule, ScheduleSpec
+from ..store import FORMAT, dumps
+from ..testset import TestSet, Utterance, load_testset
+from ..timing import hardware
+
+
+@dataclass(frozen=True)
+class GridPoint:
+    """One configuration: a schedule built for ``steps``, driven by ``sampler``."""
+
+    spec: ScheduleSpec
+    schedule: NoiseSchedule
+    sampler: str
+    steps: int
+    nfe: int
+
+    @property
+    def label(self) -> str:
+        return f"{self.spec.name}/{self.sampler}/{self.steps}"
+
+    def describe(self) -> dict[str, Any]:
+        return {"schedule": self.spec.name, "kind": self.spec.kind, "sampler": self.sampler,
+                "steps": self.steps, "nfe": self.nfe, **self.schedule.describe()}
+
+
+@dataclass(frozen=True)
+class Job:
+    """One item: utterance index ``utt``, grid index ``point``, ``seed``; ``key`` caches it."""
+
+    key: str
+    utt: int
+    point: int
+    seed: int
+
+
+@dataclass
+class Setup:
+    """A validated run: config, loaded plug-in, test set, metrics, length policy, grid and jobs."""
+
+    config: RunConfig
+    plugin: Plugin
+    testset: TestSet
+    metrics: list[Any]
+    policy: Any
+    grid: list[GridPoint]
+    out_dir: Path
+    jobs: list[Job] = field(default_factory=list)
+
+    def manifest(self) -> dict[str, Any]:
+        """The run's ``manifest.json``: everything needed to reproduce and read it."""
+        cfg = self.config
+        cols = {c.name: {"metric": m.name, "unit": c.unit, "higher_is_better": c.higher_is_better,
+                         "range": list(c.valid_range), "description": c.description}
+                for m in self.metrics for c in m.columns}
+        timed = [u.id for u in timing_utterances(self)]
+        return {
+            "format": FORMAT, "vocobench_version": __version__,
+            "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+            "config_source": cfg.source, "config": cfg.raw,
+            "vocoder": self.plugin.describe(), "frontend": self.plugin.frontend.to_dict(),
+            "frontend_fingerprint": self.plugin.frontend.fingerprint(),
+            "metrics": {m.name: m.variant(self.plugin.sample_rate) for m in self.metrics}, "columns": cols,
+            "length_policy": self.policy.describe(), "dataset": self.testset.describe(),
+            "grid": [g.describe() for g in self.grid], "seeds": cfg.seeds,
+            "sampler_options": cfg.sampler_options,
+            "timing": {"warmup": cfg.timing.warmup, "repeats": cfg.timing.repeats,
+                       "utterances": timed, "threads": cfg.timing.threads},
+            "save_audio": cfg.save_audio, "hardware": {**hardware(), **_plugin_hw(self.plugin)},
+            "packages": package_versions(), "decide": cfg.decide,
+            "job_keys": [j.key for j in self.jobs],
+        }
+
+
+def _plugin_hw(plugin: Plugin) -> dict[str, Any]:
+    fn = getattr(plugin.obj, "describe", None)
+    try:
+        return {"plugin": fn()} if callable(fn) else {}
+    except Exception:
+        return {}
+
+
+def package_versions() -> dict[str, str]:
+    """Installed versions of vocobench and the packages that can change its results."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {}
+    for name in ("vocobench", "numpy", "scipy", "librosa", "soundfile", "soxr", "pystoi", "pesq",
+                 "pandas", "matplotlib", "torch"):
+        try:
+            out[name] = version(name)
+        except PackageNotFoundError:
+            pass
+    return out
+
+
+def timing_utterances(setup: Setup) -> list[Utterance]:
+    """The utterances of the timing phase: the first ``[timing] utterances`` (0: all)."""
+    n = setup.config.timing.utterances
+    utts = setup.testset.utterances
+    return list(utts if n == 0 else utts[:n])
+
+
+def build_grid(cfg: RunConfig, plugin: Plugin) -> list[GridPoint]:
+    """Every (schedule, steps, sampler) of the config that the plug-in offers, in config order."""
+    samplers = cfg.samplers or plugin.samplers()
+    offered = plugin.samplers()
+    for s in samplers:
+        if s not in offered:
+            raise InputError(f"sampler not offered by this {plugin.kind}; valid: {', '.join(offered)}",
+                             source=cfg.source, field="sweep.samplers", value=s)
+    for name in cfg.sampler_options:
+        if name not in samplers:
+            raise InputError("options given for a sampler that is not swept", source=cfg.source,
+                             field=f"sampler_options.{name}", value=name)
+    grid = []
+    for spec in cfg.schedules:
+        steps = [spec.fixed_length] if spec.fixed_length else cfg.steps
+        for n in steps:
+            try:
+                sched = spec.build(n, plugin.training_schedule)
+            except InputError as e:
+                raise InputError(str(e), source=cfg.source) from None
+            for s in samplers:
+                grid.append(GridPoint(spec, sched, s, n, plugin.nfe(sched, s)))
+    return grid
+
+
+def job_key(shared: str, point: str, utt: Utterance, seed: int) -> str:
+    """Cache key: everything that changes a result (``shared``: vocoder, version, front-end,
+    metric variants, length policy; ``point``: schedule, sampler and its options), seed, content."""
+    h = hashlib.sha256(shared.encode())
+    h.update(point.encode())
+    h.update(f"\0{seed}\0{utt.sha256}".encode())
+    return h.hexdigest()[:24]
+
+
+def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet | None = None) -> Setup:
+    """Validate everything and build the job list; writes nothing."""
+    from ..metrics import DEFAULT_METRICS, LengthPolicy, build_metrics
+
+    try:
+        plugin = load_plugin(cfg.target, cfg.options, cfg.search_path)
+    except InputError as e:
+        if e.source:
+            raise
+        raise InputError(str(e), source=cfg.source) from None
+    if cfg.version:
+        plugin.version = cfg.version
+    if cfg.version_file:
+        digest = hashlib.sha256(cfg.version_file.read_bytes()).hexdigest()[:16]
+        plugin.version = f"{plugin.version or ''}+sha256:{digest}"
+    if plugin.frontend.sample_rate != plugin.sample_rate:
+        raise InputError("front-end sample rate differs from the vocoder's sample rate",
+                         source=cfg.target, field="frontend.sample_rate",
+                         value=(plugin.frontend.sample_rate, plugin.sample_rate))
+    ts = testset or load_testset(cfg.testset)
+    metrics = build_metrics(list(cfg.metrics or DEFAULT_METRICS), cfg.metric_options, source=cfg.source)
+    policy = LengthPolicy(mode=cfg.length_mode, tolerance_hops=cfg.length_tolerance_hops)
+    grid = build_grid(cfg, plugin)
+    _check_decide(cfg, metrics)
+    out = Path(out_dir) if out_dir else (cfg.output_dir or Path("reports") / "run")
+    setup = Setup(cfg, plugin, ts, metrics, policy, grid, out)
+    ids = {"vocoder": plugin.describe(), "version": __version__,
+           "metrics": {m.name: m.variant(plugin.sample_rate) for m in metrics},
+           "length": policy.describe()}
+    shared = dumps(ids)
+    points = [dumps({"schedule": p.describe(), "options": cfg.sampler_options.get(p.sampler, {})})
+              for p in grid]
+    for ui, u in enumerate(ts.utterances):
+        for pi in range(len(grid)):
+            for seed in cfg.seeds:
+                setup.jobs.append(Job(job_key(shared, points[pi], u, seed), ui, pi, seed))
+    return setup
+
+
+def _check_decide(cfg: RunConfig, metrics: list[Any]) -> None:
+    """Validate ``[decide]`` now, so a typo there cannot surface only after a long sweep."""
+    try:
+        from ..report.options import ReportOptions
+    except ImportError:
+        return
+    opts = ReportOptions.from_mapping(cfg.decide, source=cfg.source)
+    columns = {c.name for m in metrics for c in m.columns if isinstance(c.higher_is_better, bool)}
+    named = [*(opts.metrics or ()), *opts.margins, *([opts.primary] if opts.primary else [])]
+    for name in named:
+        if name not in columns:
+            raise InputError(f"not a metric column of this run; valid: {', '.join(sorted(columns))}",
+                             source=cfg.source, field="decide", value=name)

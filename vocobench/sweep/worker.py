@@ -1,0 +1,164 @@
+"""The worker: synthesises and scores one job at a time, caching per-utterance work."""
+from __future__ import annotations
+
+import signal
+import threading
+import time
+from collections import OrderedDict
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from ..errors import InputError, ItemFailure, MetricUnavailable
+from ..outputs import as_waveform, audio_sha, save_audio
+from ..testset import Utterance, load_audio, load_features
+from .plan import Job, Setup
+
+
+def item_rng(seed: int, utt: Utterance) -> np.random.Generator:
+    """Per-item generator: same seed and same utterance content ⇒ same noise."""
+    return np.random.default_rng([seed, int(utt.sha256[:8], 16)])
+
+
+def load_utterance(setup: Setup, i: int) -> tuple[np.ndarray, np.ndarray]:
+    """Reference audio (at the vocoder's rate) and mel features of utterance ``i``: the stored
+    features, which must have the front-end's ``n_mels`` bands, else the front-end's own."""
+    u = setup.testset.utterances[i]
+    ref = load_audio(u, setup.plugin.sample_rate)
+    feats = load_features(u)
+    if feats is None:
+        feats = setup.plugin.frontend(ref)
+    elif feats.shape[0] != setup.plugin.frontend.n_mels:
+        raise InputError("features have the wrong number of mel bands", source=str(u.features_path),
+                         field="n_mels", value=feats.shape[0])
+    return ref, feats
+
+
+def safe_name(name: str) -> str:
+    """``name`` with every character other than letters, digits and ``-_.`` replaced by ``_``."""
+    return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
+
+
+class deadline:
+    """Raise :class:`ItemFailure` if the body runs past ``seconds`` (SIGALRM; main thread only)."""
+
+    def __init__(self, seconds: float | None) -> None:
+        self.seconds = seconds
+        self.active = bool(seconds) and threading.current_thread() is threading.main_thread() \
+            and hasattr(signal, "setitimer")
+
+    def __enter__(self) -> None:
+        if self.active:
+            def on_alarm(signum: int, frame: Any) -> None:
+                raise ItemFailure(f"vocoder call exceeded the {self.seconds:g} s timeout")
+
+            self._old = signal.signal(signal.SIGALRM, on_alarm)
+            signal.setitimer(signal.ITIMER_REAL, float(self.seconds))  # type: ignore[arg-type]
+
+    def __exit__(self, *exc: object) -> None:
+        if self.active:
+            signal.setitimer(signal.ITIMER_REAL, 0)
+            signal.signal(signal.SIGALRM, self._old)
+
+
+class Worker:
+    """Synthesises and scores jobs; caches per-utterance work (reference audio, analysis)."""
+
+    def __init__(self, setup: Setup, cache_size: int = 2) -> None:
+        self.s = setup
+        self._synth: dict[int, Callable] = {}
+        self._utt: OrderedDict[int, dict[str, Any]] = OrderedDict()
+        self._cache_size = cache_size
+
+    def utterance(self, i: int) -> dict[str, Any]:
+        """Reference audio and features of utterance ``i`` (LRU-cached); metric states are added
+        by :meth:`states` on first use, so the timing phase never computes them."""
+        if i in self._utt:
+            self._utt.move_to_end(i)
+            return self._utt[i]
+        ref, feats = load_utterance(self.s, i)
+        entry = {"ref": ref, "feats": feats}
+        self._utt[i] = entry
+        while len(self._utt) > self._cache_size:
+            self._utt.popitem(last=False)
+        return entry
+
+    def states(self, i: int) -> dict[str, Any]:
+        """Reference-side analysis of every metric for utterance ``i`` (cached with the audio)."""
+        entry = self.utterance(i)
+        if "states" not in entry:
+            sr = self.s.plugin.sample_rate
+            entry["states"] = {m.name: m.prepare(entry["ref"], sr) for m in self.s.metrics}
+        return entry["states"]
+
+    def synth(self, p: int) -> Callable:
+        """The plug-in's synthesiser for grid point ``p`` (built once)."""
+        if p not in self._synth:
+            g = self.s.grid[p]
+            self._synth[p] = self.s.plugin.synthesizer(g.sampler, self.s.config.sampler_options.get(g.sampler))
+        return self._synth[p]
+
+    def synthesize(self, job: Job) -> tuple[np.ndarray, float]:
+        """The vocoder's raw output for ``job`` and its synchronised wall time in seconds."""
+        g, u = self.s.grid[job.point], self.s.testset.utterances[job.utt]
+        feats = self.utterance(job.utt)["feats"]
+        fn = self.synth(job.point)
+        rng = item_rng(job.seed, u)
+        self.s.plugin.synchronize()
+        t0 = time.perf_counter()
+        with deadline(self.s.config.item_timeout_s):
+            out = fn(feats, g.schedule, rng)
+        self.s.plugin.synchronize()
+        return out, time.perf_counter() - t0
+
+    def process(self, job: Job) -> dict[str, Any]:
+        """The item record of ``job``: synthesised, checked, saved if asked, scored."""
+        g, u = self.s.grid[job.point], self.s.testset.utterances[job.utt]
+        rec: dict[str, Any] = {"key": job.key, "utt_id": u.id, "utt_sha": u.sha256[:16], "tags": u.tags,
+                               "schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps,
+                               "nfe": g.nfe, "seed": job.seed, "duration_s": u.duration_s,
+                               "status": "ok", "failure": None, "metrics": {}, "notes": {},
+                               "synth_s": None, "rtf": None, "ms_per_nfe": None, "audio_sha": None,
+                               "audio_path": None, "length_diff": None}
+        try:
+            entry = self.utterance(job.utt)
+            try:
+                out, secs = self.synthesize(job)
+            except ItemFailure:
+                raise
+            except Exception as e:
+                raise ItemFailure(f"vocoder raised {type(e).__name__}: {e}") from None
+            y = as_waveform(out)
+            rec.update(synth_s=secs, rtf=secs / u.duration_s, ms_per_nfe=1e3 * secs / max(g.nfe, 1),
+                       audio_sha=audio_sha(y))
+            ref, est, info = self.s.policy.apply(entry["ref"], y, self.s.plugin.frontend.hop_length)
+            rec["length_diff"] = info.get("length_diff")
+            if self._save(job):
+                name = f"{safe_name(g.spec.name)}__{g.sampler}__{g.steps}__s{job.seed}.flac"
+                rel = Path("audio") / safe_name(u.id) / name
+                save_audio(self.s.out_dir / rel, y, self.s.plugin.sample_rate)
+                rec["audio_path"] = str(rel)
+            self._score(rec, self.states(job.utt), est)
+        except ItemFailure as e:
+            rec.update(status="failed", failure=str(e))
+        return rec
+
+    def _score(self, rec: dict[str, Any], states: dict[str, Any], est: np.ndarray) -> None:
+        sr = self.s.plugin.sample_rate
+        for m in self.s.metrics:
+            try:
+                vals = m.score(states[m.name], est, sr)
+                rec["metrics"].update({c.name: float(vals[c.name]) for c in m.columns})
+            except MetricUnavailable as e:
+                for c in m.columns:
+                    rec["metrics"][c.name] = float("nan")
+                    rec["notes"][c.name] = str(e)
+            except Exception as e:       # a metric bug must not end the sweep
+                for c in m.columns:
+                    rec["metrics"][c.name] = float("nan")
+                    rec["notes"][c.name] = f"metric error {type(e).__name__}: {e}"
+
+    def _save(self, job: Job) -> bool:
+        mode = self.s.config.save_audio
+        return mode == "all" or (mode == "first-seed" and job.seed == self.s.config.seeds[0])
