@@ -11,7 +11,9 @@ from typing import Any, Callable, Sequence
 from . import __version__
 from .errors import InputError
 
-DEMO_CONFIG = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "config.toml"
+# The demo scenario ships with the source tree, not with the package: looked up from the current
+# folder (the README runs the demo from the repository root) or given with --scenario.
+DEMO_SCENARIO = Path("scenarios") / "pier-announcements"
 
 
 def _option(text: str) -> tuple[str, Any]:
@@ -36,10 +38,12 @@ def cmd_run(a: argparse.Namespace) -> int:
 
 
 def cmd_demo(a: argparse.Namespace) -> int:
-    if not DEMO_CONFIG.is_file():
-        raise InputError("the bundled demo scenario is missing; install vocobench from a source "
-                         "checkout with 'pip install -e .'", source=str(DEMO_CONFIG))
-    a.config = DEMO_CONFIG
+    config = Path(a.scenario) / "config.toml"
+    if not config.is_file():
+        raise InputError("demo scenario not found: run this from the root of a vocobench source "
+                         "checkout, or name the scenario folder with --scenario", source=str(config),
+                         field="--scenario")
+    a.config = config
     a.out = a.out or Path("reports") / "pier-announcements"
     return cmd_run(a)
 
@@ -128,6 +132,8 @@ def build_parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="run the bundled pier-announcement scenario (CPU, about a minute)",
                        description="Sweep the analytic demo denoiser over the bundled test set.")
     _run_flags(d, out_default="reports/pier-announcements")
+    d.add_argument("--scenario", type=Path, default=DEMO_SCENARIO, metavar="DIR",
+                   help="scenario folder holding config.toml (default: %(default)s, from the current folder)")
     d.set_defaults(fn=cmd_demo)
 
     c = sub.add_parser("check", help="check a vocoder or denoiser against the plug-in contract",
