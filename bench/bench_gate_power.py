@@ -1,7 +1,7 @@
 """False-alarm rate and power of the regression gate, with fresh synthesis in every trial.
 
 Plain script: ``python bench/bench_gate_power.py [--trials K] [--workers N]``. Each trial
-synthesises the 30 demo utterance variants of :mod:`vocobench.gate.power` with the analytic
+synthesises the 30 demo utterance variants of ``bench/gate_power_study.py`` with the analytic
 denoiser (4 DDIM steps) for two baseline and two candidate seeds that no other trial uses, scores
 them (``pesq_wb``, ``stoi``) and runs :func:`vocobench.gate.compare_runs` with the default policy
 twice: baseline vs the same model ("fresh seeds", should pass) and baseline vs the candidate with
@@ -26,11 +26,12 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
 
 from scipy import stats as sst  # noqa: E402
 
 from vocobench.gate import compare_runs  # noqa: E402
-from vocobench.gate import power as P  # noqa: E402
+import gate_power_study as P  # noqa: E402
 
 TARGET_PASS = 0.95
 TARGET_FLAG = 0.90

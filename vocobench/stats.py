@@ -15,12 +15,13 @@ Paired comparisons against a reference configuration use the per-utterance diffe
 i.e. the paired bootstrap) and the Wilcoxon signed-rank test (Wilcoxon 1945, "Individual
 comparisons by ranking methods", Biometrics Bull.) via :func:`scipy.stats.wilcoxon`. p-values are
 corrected across the configurations compared, per metric, with Holm's step-down method (Holm
-1979, "A simple sequentially rejective multiple test procedure", Scand. J. Statist.).
+1979, "A simple sequentially rejective multiple test procedure", Scand. J. Statist.). That chain
+is :func:`paired_comparison` and :func:`holm_family`, used by the report and the gate alike.
 """
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
@@ -28,8 +29,12 @@ import pandas as pd
 from scipy import stats as sst
 
 from .errors import InputError
+from .keys import CONFIG_KEYS, ConfigKey, directed_columns, direction
+from .keys import labels as config_labels
+from .runtables import (configurations, default_reference, failure_counts, latency_summary,
+                        nfe_map, ok_mask, require_item_fields, utterance_means)
 
-CONFIG_KEYS = ("schedule", "sampler", "steps")
+Config = ConfigKey                      # the name used before keys.py
 DEFAULT_CONFIDENCE = 0.95               # common practice, no source
 # Efron & Tibshirani 1993, "An Introduction to the Bootstrap", Ch. 19 (from memory): about
 # 1000-2000 resamples for interval endpoints.
@@ -37,36 +42,6 @@ DEFAULT_N_RESAMPLES = 2000
 DEFAULT_SEED = 0                        # any fixed value; recorded in every report
 DEFAULT_METHOD = "BCa"                  # Efron 1987
 METHODS = ("BCa", "percentile", "basic")
-
-
-@dataclass(frozen=True)
-class Config:
-    """One configuration of the sweep: ``(schedule, sampler, steps)``."""
-
-    schedule: str
-    sampler: str
-    steps: int
-
-    @property
-    def label(self) -> str:
-        return f"{self.schedule}/{self.sampler}/{self.steps}"
-
-    def __str__(self) -> str:
-        return self.label
-
-    @classmethod
-    def parse(cls, text: str, *, source: str | None = None, field: str = "reference") -> "Config":
-        """Parse ``"schedule/sampler/steps"`` (the label form)."""
-        parts = str(text).rsplit("/", 2)
-        if len(parts) != 3 or not parts[0] or not parts[1]:
-            raise InputError("expected a configuration as schedule/sampler/steps", source=source,
-                             field=field, value=text)
-        try:
-            steps = int(parts[2])
-        except ValueError:
-            raise InputError("steps of a configuration must be an integer", source=source,
-                             field=field, value=text) from None
-        return cls(parts[0], parts[1], steps)
 
 
 @dataclass(frozen=True)
@@ -197,129 +172,83 @@ def pareto_mask(cost: Sequence[float], quality: Sequence[float], higher_is_bette
     return mask
 
 
+# ---------------------------------------------------------------- paired comparison
+
+@dataclass(frozen=True)
+class PairedResult:
+    """A candidate against a base over the ``n`` utterances both have (``d = cand − base``).
+
+    ``diff_low, diff_high``: two-sided bootstrap interval of mean(d) at the settings' confidence;
+    ``bound_lower, bound_upper``: the one-sided bounds, each at that confidence (together a
+    ``2·confidence − 1`` interval); ``p``: two-sided Wilcoxon p-value of d; ``p_holm``: ``p``
+    Holm-adjusted over a family (:func:`holm_family`), NaN until then.
+    """
+
+    n: int
+    base_mean: float
+    cand_mean: float
+    diff: float
+    diff_low: float
+    diff_high: float
+    bound_lower: float
+    bound_upper: float
+    p: float
+    higher_is_better: bool
+    p_holm: float = np.nan
+
+    @property
+    def worse_bound(self) -> float:
+        """The one-sided bound on the worse side: lower where higher is better, else upper."""
+        return self.bound_lower if self.higher_is_better else self.bound_upper
+
+
+def paired_comparison(base: pd.Series | Sequence[float], cand: pd.Series | Sequence[float],
+                      settings: BootstrapSettings = BootstrapSettings(),
+                      higher_is_better: bool = True) -> PairedResult:
+    """Paired comparison of per-utterance means (see the module docstring).
+
+    ``base`` and ``cand`` are paired by index when both are :class:`pandas.Series` (utterances
+    in ``base``'s order), else by position; a pair with a missing or non-finite side is left out.
+    All intervals come from one bootstrap draw (:func:`bootstrap_mean_intervals`).
+    """
+    if not (isinstance(base, pd.Series) and isinstance(cand, pd.Series)):
+        base = pd.Series(np.asarray(base, dtype=np.float64))
+        cand = pd.Series(np.asarray(cand, dtype=np.float64))
+        if len(base) != len(cand):
+            raise ValueError(f"paired samples differ in length ({len(base)} vs {len(cand)})")
+    pair = pd.concat({"b": base, "c": cand}, axis=1, join="inner")
+    pair = pair[np.isfinite(pair.to_numpy(dtype=np.float64)).all(axis=1)]
+    d = (pair["c"] - pair["b"]).to_numpy(dtype=np.float64)
+    n = int(d.size)
+    (lo, hi), (low, _), (_, high) = bootstrap_mean_intervals(d, settings, ("two-sided", "greater", "less"))
+    nan = np.nan
+    return PairedResult(n=n, base_mean=float(pair["b"].mean()) if n else nan,
+                        cand_mean=float(pair["c"].mean()) if n else nan,
+                        diff=float(d.mean()) if n else nan, diff_low=float(lo), diff_high=float(hi),
+                        bound_lower=float(low), bound_upper=float(high), p=float(wilcoxon_p(d)),
+                        higher_is_better=bool(higher_is_better))
+
+
+def holm_family(results: Sequence[PairedResult]) -> list[PairedResult]:
+    """``results`` with ``p_holm`` set: :func:`holm` over the family of their p-values."""
+    return [replace(r, p_holm=float(a)) for r, a in zip(results, holm([r.p for r in results]))]
+
+
 # ---------------------------------------------------------------- run-level tables
 
-def configurations(manifest: Mapping[str, Any], items: pd.DataFrame) -> list[Config]:
-    """Configurations that have items, in grid order (then any extra ones in item order)."""
-    seen: dict[Config, None] = {}
-    for g in manifest.get("grid") or []:
-        try:
-            seen[Config(str(g["schedule"]), str(g["sampler"]), int(g["steps"]))] = None
-        except (KeyError, TypeError, ValueError):
-            raise InputError("grid entry lacks schedule/sampler/steps", source="manifest.json",
-                             field="grid", value=g) from None
-    present: dict[Config, None] = {}
-    if len(items):
-        for s, a, n in items[list(CONFIG_KEYS)].itertuples(index=False):
-            present.setdefault(Config(str(s), str(a), int(n)), None)
-    for c in present:
-        seen.setdefault(c, None)
-    return [c for c in seen if c in present]
-
-
-def default_reference(configs: Sequence[Config]) -> Config:
-    """The configuration with the most steps; ties go to the first in grid order."""
-    if not configs:
-        raise InputError("the run has no configurations with items", field="items.jsonl")
-    best = max(c.steps for c in configs)
-    return next(c for c in configs if c.steps == best)
-
-
-def config_labels(items: pd.DataFrame) -> pd.Series:
-    """``schedule/sampler/steps`` label of every row (the :attr:`Config.label` form)."""
-    return (items["schedule"].astype(str) + "/" + items["sampler"].astype(str) + "/"
-            + items["steps"].astype(int).astype(str))
-
-
-def utterance_means(items: pd.DataFrame, column: str, configs: Sequence[Config],
-                    key: str = "utt_id") -> pd.DataFrame:
-    """Per-utterance mean of ``column`` over the ``ok`` seeds: rows utterances, columns labels.
-
-    ``key`` is the column identifying an utterance (rows are indexed by it, in item order).
-    """
-    labels = [c.label for c in configs]
-    utts = list(dict.fromkeys(items[key].astype(str)))
-    if column not in items.columns:
-        return pd.DataFrame(np.nan, index=pd.Index(utts, name=key), columns=labels)
-    ok = items[ok_mask(items)]
-    frame = pd.DataFrame({"config": config_labels(ok), key: ok[key].astype(str),
-                          "v": pd.to_numeric(ok[column], errors="coerce")})
-    table = frame.groupby([key, "config"], sort=False)["v"].mean().unstack("config")
-    return table.reindex(index=pd.Index(utts, name=key), columns=labels)
-
-
-def ok_mask(items: pd.DataFrame) -> pd.Series:
-    """Rows with ``status == "ok"`` (every row when there is no ``status`` column)."""
-    if "status" not in items.columns:
-        return pd.Series(True, index=items.index)
-    return items["status"].astype(str) == "ok"
-
-
 def higher_is_better(columns: Mapping[str, Any], column: str) -> bool:
+    """Direction of a metric column of a manifest; raises :class:`InputError` when it has none."""
     spec = columns.get(column)
-    if not isinstance(spec, Mapping) or not isinstance(spec.get("higher_is_better"), bool):
+    hib = direction(spec)
+    if hib is None:
         raise InputError("metric column lacks a boolean higher_is_better", source="manifest.json",
                          field=f"columns.{column}.higher_is_better",
-                         value=None if not isinstance(spec, Mapping) else spec.get("higher_is_better"))
-    return bool(spec["higher_is_better"])
+                         value=spec.get("higher_is_better") if isinstance(spec, Mapping) else None)
+    return hib
 
 
-def failure_counts(items: pd.DataFrame, configs: Sequence[Config]) -> pd.DataFrame:
-    """Items and failed items per configuration (index: labels)."""
-    lab = config_labels(items)
-    failed = ~ok_mask(items)
-    out = pd.DataFrame({"items": lab.value_counts(), "failed": lab[failed].value_counts()})
-    return out.reindex([c.label for c in configs]).fillna(0).astype(int)
-
-
-def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence[Config],
-                    nfe: Mapping[str, int]) -> pd.DataFrame:
-    """Latency per configuration from the timing journal (repeat ≥ 0; repeat −1 reported apart).
-
-    Columns: ``nfe, rtf_median, rtf_p90, ms_per_nfe, first_call_s, n_timed, latency_source``.
-    ``rtf_p90`` is numpy's default (linear) 90th percentile. A configuration absent from the
-    timing journal falls back to the sweep's own timings (``latency_source = "sweep"``), which
-    are contended when the sweep ran with several workers.
-    """
-    rows = []
-    tlab = config_labels(timing) if len(timing) and set(CONFIG_KEYS) <= set(timing.columns) else None
-    ilab = config_labels(items)
-    for c in configs:
-        n = int(nfe.get(c.label, c.steps))
-        row: dict[str, Any] = {"config": c.label, "nfe": n, "rtf_median": np.nan, "rtf_p90": np.nan,
-                               "ms_per_nfe": np.nan, "first_call_s": np.nan, "n_timed": 0,
-                               "latency_source": "none"}
-        src = timing[tlab == c.label] if tlab is not None else timing.iloc[0:0]
-        if len(src):
-            rep = pd.to_numeric(src["repeat"], errors="coerce") if "repeat" in src.columns \
-                else pd.Series(0, index=src.index)
-            timed, first = src[rep >= 0], src[rep == -1]
-            rtf = pd.to_numeric(timed.get("rtf"), errors="coerce").dropna().to_numpy()
-            if rtf.size:
-                row.update(rtf_median=float(np.median(rtf)), rtf_p90=float(np.percentile(rtf, 90)),
-                           n_timed=int(rtf.size), latency_source="timing")
-                row["ms_per_nfe"] = _ms_per_nfe(timed, n)
-            secs = pd.to_numeric(first.get("seconds"), errors="coerce").dropna().to_numpy()
-            if secs.size:
-                row["first_call_s"] = float(np.median(secs))
-        if row["latency_source"] == "none":
-            sw = items[(ilab == c.label) & ok_mask(items)]
-            rtf = pd.to_numeric(sw.get("rtf"), errors="coerce").dropna().to_numpy() if len(sw) else []
-            if len(rtf):
-                row.update(rtf_median=float(np.median(rtf)), rtf_p90=float(np.percentile(rtf, 90)),
-                           n_timed=int(len(rtf)), latency_source="sweep")
-                row["ms_per_nfe"] = _ms_per_nfe(sw, n)
-        rows.append(row)
-    return pd.DataFrame(rows).set_index("config")
-
-
-def _ms_per_nfe(frame: pd.DataFrame, nfe: int) -> float:
-    if "ms_per_nfe" in frame.columns:
-        v = pd.to_numeric(frame["ms_per_nfe"], errors="coerce").dropna().to_numpy()
-        if v.size:
-            return float(np.median(v))
-    s = pd.to_numeric(frame.get("seconds", frame.get("synth_s")), errors="coerce").dropna().to_numpy()
-    return float(np.median(s) * 1e3 / max(nfe, 1)) if s.size else np.nan
+_NO_PAIR = {"diff": np.nan, "diff_low": np.nan, "diff_high": np.nan, "diff_bound": np.nan,
+            "n_pairs": 0, "p": np.nan, "p_holm": np.nan}       # the reference's own row
 
 
 @dataclass
@@ -367,14 +296,9 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
     if items is None or not len(items):
         raise InputError("the run has no finished items", source=str(getattr(run, "path", "")),
                          field="items.jsonl")
-    missing = [k for k in (*CONFIG_KEYS, "utt_id") if k not in items.columns]
-    if missing:
-        raise InputError("items lack required fields", source="items.jsonl", field=missing[0])
+    require_item_fields(items, "items.jsonl")
     all_cols = dict(manifest.get("columns") or {})
-    # Default: the quality columns, i.e. those with a direction; a column whose higher_is_better
-    # is not a boolean (e.g. a frame count) is informational and left out.
-    names = [c for c in all_cols if isinstance((all_cols[c] or {}).get("higher_is_better"), bool)] \
-        if columns is None else list(columns)
+    names = directed_columns(all_cols) if columns is None else list(columns)
     for col in names:
         if col not in all_cols:
             raise InputError(f"unknown metric column; the run has: {', '.join(all_cols) or 'none'}",
@@ -386,14 +310,15 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
         raise InputError("reference configuration has no items in this run; valid: "
                          + ", ".join(c.label for c in configs), source=reference_source,
                          field=reference_field, value=ref.label)
-    nfe = _nfe_map(manifest, items)
+    others = [c for c in configs if c != ref]
     rows, per_utt = [], {}
     for col in names:
         hib = higher_is_better(all_cols, col)
         table = utterance_means(items, col, configs)
         per_utt[col] = table
-        ref_vals = table[ref.label]
-        block = []
+        paired = holm_family([paired_comparison(table[ref.label], table[c.label], settings, hib)
+                              for c in others])
+        vs_ref = {c: r for c, r in zip(others, paired)}
         for c in configs:
             x = table[c.label].to_numpy(dtype=np.float64)
             xf = x[np.isfinite(x)]
@@ -401,37 +326,18 @@ def summarise(run: Any, *, reference: Config | None = None, columns: Iterable[st
             r: dict[str, Any] = {"config": c.label, "column": col, "n": int(xf.size),
                                  "mean": float(xf.mean()) if xf.size else np.nan,
                                  "median": float(np.median(xf)) if xf.size else np.nan,
-                                 "ci_low": lo, "ci_high": hi, "diff": np.nan, "diff_low": np.nan,
-                                 "diff_high": np.nan, "diff_bound": np.nan, "n_pairs": 0, "p": np.nan}
-            if c != ref:
-                d = (table[c.label] - ref_vals).to_numpy(dtype=np.float64)
-                d = d[np.isfinite(d)]
-                side = "greater" if hib else "less"
-                (dlo, dhi), b = bootstrap_mean_intervals(d, settings, ("two-sided", side))
-                r.update(diff=float(d.mean()) if d.size else np.nan, diff_low=dlo, diff_high=dhi,
-                         diff_bound=b[0] if hib else b[1], n_pairs=int(d.size), p=wilcoxon_p(d))
-            block.append(r)
-        adj = holm([r["p"] for r in block])
-        for r, a in zip(block, adj):
-            r["p_holm"] = float(a)
-        rows.extend(block)
+                                 "ci_low": lo, "ci_high": hi}
+            pr = vs_ref.get(c)
+            r.update(_NO_PAIR if pr is None else
+                     {"diff": pr.diff, "diff_low": pr.diff_low, "diff_high": pr.diff_high,
+                      "diff_bound": pr.worse_bound, "n_pairs": pr.n, "p": pr.p, "p_holm": pr.p_holm})
+            rows.append(r)
     metrics = pd.DataFrame(rows, columns=["config", "column", "n", "mean", "median", "ci_low",
                                           "ci_high", "diff", "diff_low", "diff_high", "diff_bound",
                                           "n_pairs", "p", "p_holm"])
     timing = run.timing if run.timing is not None else pd.DataFrame()
     return RunStatistics(configs=configs, reference=ref, columns={c: dict(all_cols[c]) for c in names},
-                         metrics=metrics, latency=latency_summary(timing, items, configs, nfe),
+                         metrics=metrics, latency=latency_summary(timing, items, configs,
+                                                                  nfe_map(manifest, items)),
                          failures=failure_counts(items, configs), per_utterance=per_utt,
                          settings=settings)
-
-
-def _nfe_map(manifest: Mapping[str, Any], items: pd.DataFrame) -> dict[str, int]:
-    out: dict[str, int] = {}
-    if "nfe" in items.columns:
-        for lab, n in zip(config_labels(items), pd.to_numeric(items["nfe"], errors="coerce")):
-            if np.isfinite(n):
-                out.setdefault(lab, int(n))
-    for g in manifest.get("grid") or []:
-        if g.get("nfe") is not None:
-            out[f"{g['schedule']}/{g['sampler']}/{int(g['steps'])}"] = int(g["nfe"])
-    return out

@@ -27,7 +27,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats as sst
 
-from ..stats import BootstrapSettings, Config, config_labels
+from ..keys import CONFIG_KEYS, ConfigKey, labels
+from ..stats import BootstrapSettings
 
 HARDWARE_KEYS = ("processor", "cpu_count", "affinity", "machine", "platform", "plugin")
 
@@ -106,15 +107,16 @@ def latency_verdict(ratio: float, low: float, high: float, n_a: int, n_b: int,
     return "pass", ""
 
 
-def _timed(timing: pd.DataFrame, cfg: Config) -> pd.DataFrame:
-    need = {"schedule", "sampler", "steps", "utt_id", "repeat", "rtf"}
+def _timed(timing: pd.DataFrame, cfg: ConfigKey) -> pd.DataFrame:
+    need = {*CONFIG_KEYS, "utt_id", "repeat", "rtf"}
     if timing is None or not len(timing) or not need <= set(timing.columns):
         return pd.DataFrame(columns=sorted(need))
-    t = timing[config_labels(timing) == cfg.label]
+    t = timing[labels(timing) == cfg.label]
     return t[pd.to_numeric(t["repeat"], errors="coerce") >= 0]
 
 
-def stored_latency(tb: pd.DataFrame, tc: pd.DataFrame, b: Config, c: Config, policy: Any) -> LatencyResult:
+def stored_latency(tb: pd.DataFrame, tc: pd.DataFrame, b: ConfigKey, c: ConfigKey,
+                   policy: Any) -> LatencyResult:
     """Latency verdict from two runs' timing journals (same hardware assumed; see module doc)."""
     xb, xc = _timed(tb, b), _timed(tc, c)
     utts = set(xb["utt_id"].astype(str)) & set(xc["utt_id"].astype(str))

@@ -11,12 +11,13 @@ from __future__ import annotations
 import math
 import xml.etree.ElementTree as ET
 from datetime import datetime, timezone
+from pathlib import Path
 from typing import Any
 
-from pathlib import Path
-
+from ..keys import ConfigKey
 from ..store import dumps, write_atomic
-from .compare import Comparison, ConfigResult, MetricResult, fmt_signed
+from ..textfmt import fmt_signed, md_cell, md_table, signed_interval
+from .verdict import Comparison, ConfigResult, MetricResult
 
 LINE_SHOWN = 3                  # regressions named in the verdict line
 
@@ -51,10 +52,11 @@ def verdict_line(comp: Comparison) -> str:
 def _cell(m: MetricResult) -> str:
     if m.n == 0:
         return "n/a"
-    ci = f"[{fmt_signed(m.diff_low)}, {fmt_signed(m.diff_high)}]" if math.isfinite(m.diff_low) else ""
+    head = signed_interval(m.diff, m.diff_low, m.diff_high) if math.isfinite(m.diff_low) \
+        else fmt_signed(m.diff)
     p = f" Holm p={m.p_holm:.2g}" if math.isfinite(m.p_holm) else ""
     flag = {"regression": " ❌", "improvement": " ✅", "inconclusive": " ❔"}.get(m.verdict, "")
-    return f"{fmt_signed(m.diff)} {ci}{p}{flag}".strip()
+    return f"{head}{p}{flag}"
 
 
 def _latency_cell(c: ConfigResult) -> str:
@@ -74,14 +76,13 @@ def _allow_text(m: MetricResult) -> str:
 def _table(comp: Comparison, rows: list[ConfigResult]) -> list[str]:
     cols = [m.column for m in comp.configs[0].metrics] if comp.configs else []
     head = ["configuration", "verdict", *[f"{c} Δ" for c in cols], "RTF ratio", "failed (base/cand)", "n"]
-    out = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+    cells = []
     for c in rows:
         n = max((m.n for m in c.metrics), default=0)
-        cells = [f"`{c.name}`", f"**{c.verdict}**", *[_cell(m) for m in c.metrics], _latency_cell(c),
-                 f"{c.failed_baseline}/{c.failed_candidate}" + (f" ({c.new_failures} new)" if c.new_failures else ""),
-                 str(n)]
-        out.append("| " + " | ".join(cells) + " |")
-    return out
+        cells.append([f"`{c.name}`", f"**{c.verdict}**", *[_cell(m) for m in c.metrics], _latency_cell(c),
+                      f"{c.failed_baseline}/{c.failed_candidate}"
+                      + (f" ({c.new_failures} new)" if c.new_failures else ""), str(n)])
+    return md_table(head, cells).splitlines()
 
 
 def markdown(comp: Comparison) -> str:
@@ -89,7 +90,7 @@ def markdown(comp: Comparison) -> str:
     pol = comp.policy
     title = "❌ REGRESSION" if comp.verdict == "regression" else "✅ PASS"
     mb, mc = comp.meta.get("baseline", {}), comp.meta.get("candidate", {})
-    lines = [f"### vocobench compare: {title}", "", verdict_line(comp), ""]
+    lines = [f"### vocobench compare: {title}", "", md_cell(verdict_line(comp)), ""]
     if comp.mode == "ab":
         lines.append(f"A/B latency on this machine: baseline `{comp.baseline}` vs candidate `{comp.candidate}`.")
     else:
@@ -98,13 +99,13 @@ def markdown(comp: Comparison) -> str:
                      f"({mc.get('target')} {mc.get('version') or ''}, {mc.get('created_utc')})")
     lines.append("")
     if comp.forced:
-        lines += ["**Compared with --force although:** " + "; ".join(comp.forced), ""]
+        lines += ["**Compared with --force although:** " + md_cell("; ".join(comp.forced)), ""]
     notable = [c for c in comp.configs if c.verdict != "pass"]
     if notable:
         lines += ["#### Configurations not passing cleanly", "", *_table(comp, notable), ""]
         for c in notable:
             if c.reasons:
-                lines.append(f"- `{c.name}`: {c.verdict} — " + "; ".join(c.reasons))
+                lines.append(f"- `{md_cell(c.name)}`: {c.verdict} — " + md_cell("; ".join(c.reasons)))
         lines.append("")
     lines += ["<details><summary>All configurations</summary>", "", *_table(comp, comp.configs), "",
               "</details>", ""]
@@ -120,7 +121,7 @@ def markdown(comp: Comparison) -> str:
               f"Policy: {pol.source}.", ""]
     notes = list(comp.notes) + ([comp.latency_note] if comp.latency_note else [])
     if notes:
-        lines += ["#### Notes", "", *[f"- {n}" for n in notes], ""]
+        lines += ["#### Notes", "", *[f"- {md_cell(n)}" for n in notes], ""]
     return "\n".join(lines)
 
 
@@ -133,9 +134,9 @@ def to_json(comp: Comparison) -> str:
 def _detail(c: ConfigResult) -> str:
     lines = [f"{c.name}: {c.verdict}"]
     for m in c.metrics:
-        lines.append(f"  {m.column}: Δ {fmt_signed(m.diff)} [{fmt_signed(m.diff_low)}, "
-                     f"{fmt_signed(m.diff_high)}] n={m.n} allowed {m.allowed:.4g} "
-                     f"p_holm={m.p_holm:.3g} → {m.verdict}{(' (' + m.reason + ')') if m.reason else ''}")
+        lines.append(f"  {m.column}: Δ {signed_interval(m.diff, m.diff_low, m.diff_high)} n={m.n} "
+                     f"allowed {m.allowed:.4g} p_holm={m.p_holm:.3g} → {m.verdict}"
+                     + (f" ({m.reason})" if m.reason else ""))
     lat = c.latency
     lines.append(f"  latency: {lat.verdict}" + (f" ratio {lat.ratio:.3f}" if math.isfinite(lat.ratio) else "")
                  + (f" [{lat.ratio_low:.3f}, {lat.ratio_high:.3f}]" if math.isfinite(lat.ratio_low) else "")
@@ -158,8 +159,9 @@ def junit(comp: Comparison, suite: str = "vocobench.compare") -> str:
                         ("policy", comp.policy.source), ("verdict", comp.verdict)):
         ET.SubElement(props, "property", {"name": name, "value": str(value)})
     for c in comp.configs:
-        schedule, sampler = (c.label.rsplit("/", 2) + ["", ""])[:2]
-        tc = ET.SubElement(ts, "testcase", {"name": c.name, "classname": f"{suite}.{schedule}.{sampler}",
+        key = ConfigKey.parse(c.label)
+        tc = ET.SubElement(ts, "testcase", {"name": c.name,
+                                            "classname": f"{suite}.{key.schedule}.{key.sampler}",
                                             "time": "0"})
         msg = "; ".join(c.reasons) or c.verdict
         if c.verdict == "regression":

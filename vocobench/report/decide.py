@@ -21,8 +21,8 @@ from dataclasses import dataclass, field
 import pandas as pd
 
 from ..stats import RunStatistics
+from ..textfmt import fmt, fmt_p, interval
 from .options import ReportOptions
-from .table import fmt, fmt_p, interval
 
 CAUTION = ("Objective scores are no substitute for listening tests: listen to the outputs "
            "(listening page) before deciding.")

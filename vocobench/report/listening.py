@@ -18,8 +18,9 @@ from urllib.parse import quote
 import numpy as np
 import pandas as pd
 
-from ..stats import RunStatistics, config_labels
-from .table import fmt
+from ..keys import labels
+from ..stats import RunStatistics
+from ..textfmt import fmt
 
 PEAK_DBFS = -3.0                 # peak of every clip on the page (our choice, below full scale)
 SPEC_NPERSEG = 512               # spectrogram frame (samples), Hann window, 75 % overlap
@@ -169,7 +170,7 @@ def write_listening_page(run: Any, st: RunStatistics, chosen: Sequence[str], rep
             for old in d.glob(pat):
                 old.unlink()
     items = run.items
-    lab = config_labels(items)
+    lab = labels(items)
     manifest = run.manifest
     entries = {str(u.get("id")): u for u in (manifest.get("dataset") or {}).get("utterances") or []}
     utts = [u for u in entries if u in set(items["utt_id"].astype(str))]

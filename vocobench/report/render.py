@@ -13,19 +13,22 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..stats import BootstrapSettings, Config, RunStatistics, summarise
+from ..keys import ConfigKey, is_directed
+from ..stats import BootstrapSettings, RunStatistics, summarise
 from ..store import Run, load_run, write_atomic
+from ..textfmt import latex_table, md_cell, md_table, text_table
 from .decide import CAUTION, Recommendation, recommend
 from .listening import default_choice, fewest_steps, write_listening_page
 from .options import ReportOptions
-from .table import (build_table, display_table, md_cell, to_latex, to_markdown, to_text,
-                    worst_utterances)
+from .table import build_table, display_table, worst_utterances
+
+TITLE = "Quality against latency"
 
 TABLE_NOTES = ("↑ higher is better, ↓ lower is better. Δ = configuration − reference, from "
                "per-utterance paired differences. Holm p: Wilcoxon signed-rank test, Holm-adjusted "
@@ -55,7 +58,7 @@ def options_for(run: Any, options: ReportOptions | None) -> ReportOptions:
                                       source=str(Path(run.path) / "manifest.json"))
 
 
-def check_options(opts: ReportOptions, run: Any) -> Config | None:
+def check_options(opts: ReportOptions, run: Any) -> ConfigKey | None:
     """Check names in the options against the run; returns the parsed reference (or None)."""
     cols = dict(run.manifest.get("columns") or {})
     src = opts.source
@@ -67,7 +70,7 @@ def check_options(opts: ReportOptions, run: Any) -> Config | None:
     def check(key: str, name: str) -> None:
         if name not in cols:
             raise unknown_col(key, name)
-        if not isinstance((cols[name] or {}).get("higher_is_better"), bool):
+        if not is_directed(cols[name]):
             raise InputError("column has no direction (higher_is_better), so it cannot be "
                              "compared", source=src, field=f"decide.{key}", value=name)
 
@@ -77,9 +80,9 @@ def check_options(opts: ReportOptions, run: Any) -> Config | None:
         check("primary", opts.primary)
     for m in opts.margins:
         check(f"margins.{m}", m)
-    ref = Config.parse(opts.reference, source=src, field="decide.reference") if opts.reference else None
+    ref = ConfigKey.parse(opts.reference, source=src, field="decide.reference") if opts.reference else None
     for lab in opts.listen or ():
-        Config.parse(lab, source=src, field="decide.listen")
+        ConfigKey.parse(lab, source=src, field="decide.listen")
     return ref
 
 
@@ -102,7 +105,7 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
                    reference_field="decide.reference")
     labels = {c.label for c in st.configs}
     for lab in opts.listen or ():
-        if Config.parse(lab).label not in labels:
+        if ConfigKey.parse(lab).label not in labels:
             raise InputError("configuration not in this run; valid: " + ", ".join(sorted(labels)),
                              source=opts.source, field="decide.listen", value=lab)
     if opts.metrics is None:                      # default: every column that has values
@@ -111,26 +114,19 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
         opts = opts.replace(metrics=with_values) if with_values else opts
     table = build_table(st)
     header, rows = display_table(table, st)
-    rep = run_dir / "report"
-    rep.mkdir(parents=True, exist_ok=True)
-    paths: dict[str, Path] = {}
-    title = "Quality against latency"
-    md_table = to_markdown(header, rows)
-    _put(paths, "table.md", rep / "table.md", f"# {title}\n\n{md_table}\n{md_cell(TABLE_NOTES)}\n")
-    _put(paths, "table.csv", rep / "table.csv", table.to_csv(index=False))
-    _put(paths, "table.tex", rep / "table.tex",
-         to_latex(header, rows, caption=f"{title} ({run_dir.name})"))
-    worst = worst_utterances(st, opts.worst)
-    _put(paths, "worst_utterances.csv", rep / "worst_utterances.csv", worst.to_csv(index=False))
-    _put(paths, "worst_utterances.md", rep / "worst_utterances.md", _worst_md(worst, st, opts.worst))
-
     if st.columns and opts.metrics:
         decision = recommend(st, table, opts)
         text = decision.text
     else:
         decision = None
         text = "The run has no metric values; only latency is reported.\n\n" + CAUTION + "\n"
-    _put(paths, "recommendation.md", rep / "recommendation.md", f"# Recommendation\n\n{_md_text(text)}")
+    parts = ReportParts(run_dir, st, table, header, rows, worst_utterances(st, opts.worst), opts.worst,
+                        text)
+    rep = run_dir / "report"
+    rep.mkdir(parents=True, exist_ok=True)
+    paths: dict[str, Path] = {}
+    for name, writer in WRITERS.items():
+        _put(paths, name, rep / name, writer(parts))
 
     plots = []
     if opts.plots and st.columns:
@@ -139,19 +135,19 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
         plots = write_plots(st, table, rep / "plots")
     page_files = []
     if opts.page:
-        chosen = [Config.parse(x).label for x in opts.listen] if opts.listen else \
+        chosen = [ConfigKey.parse(x).label for x in opts.listen] if opts.listen else \
             default_choice(st, decision.recommended if decision else [])
         page_files = write_listening_page(run, st, chosen, rep, limit=opts.listen_limit,
                                           roles=_roles(st, decision))
         paths["listening.html"] = page_files[-1]
         page_files = page_files[:-1]
-    summary = _summary(run, st, opts, md_table, text, paths, plots)
+    summary = _summary(run, st, opts, _table_md(parts), text, paths, plots)
     _put(paths, "summary.md", run_dir / "summary.md", summary)
     result = ReportResult(paths=paths, table=table, recommendation=text, decision=decision,
                           stats=st, plots=plots, page_files=page_files)
     if echo:
-        print(f"{title} — {run_dir}")
-        print(to_text(header, rows))
+        print(f"{TITLE} — {run_dir}")
+        print(text_table(header, rows))
         print(text)
         print("Written:")
         for p in [*paths.values(), *( [rep / "plots"] if plots else [])]:
@@ -191,21 +187,49 @@ def _md_text(text: str) -> str:
     return "\n".join(out).lstrip("\n") + "\n"
 
 
-def _worst_md(worst: pd.DataFrame, st: RunStatistics, n: int) -> str:
+@dataclass
+class ReportParts:
+    """What the report file writers draw on."""
+
+    run_dir: Path
+    st: RunStatistics
+    table: pd.DataFrame                   # raw numbers (build_table)
+    header: list[str]                     # display cells (display_table)
+    rows: list[list[str]]
+    worst: pd.DataFrame                   # worst_utterances
+    n_worst: int
+    text: str                             # the recommendation, plain words
+
+
+def _table_md(p: ReportParts) -> str:
+    return md_table(p.header, p.rows, align="l" + "r" * (len(p.header) - 1))
+
+
+def _worst_md(p: ReportParts) -> str:
+    n = p.n_worst
     out = ["# Worst utterances per configuration\n",
            f"The {n} worst utterances (seeds averaged) per configuration and metric.\n"]
-    for col in st.columns:
-        out.append(f"## {md_cell(col)}\n")
-        out.append("| Configuration | " + " | ".join(f"#{i}" for i in range(1, n + 1)) + " |")
-        out.append("|:---|" + "|".join([":---"] * n) + "|")
-        sub = worst[worst["column"] == col]
-        for c in st.configs:
+    for col in p.st.columns:
+        sub = p.worst[p.worst["column"] == col]
+        rows = []
+        for c in p.st.configs:
             s = sub[sub["config"] == c.label]
-            cells = [f"{md_cell(u)} ({v:.4g})" for u, v in zip(s["utt_id"], s["value"])]
-            cells += ["–"] * (n - len(cells))
-            out.append(f"| {md_cell(c.label)} | " + " | ".join(cells) + " |")
-        out.append("")
+            cells = [f"{u} ({v:.4g})" for u, v in zip(s["utt_id"], s["value"])]
+            rows.append([c.label, *cells, *["–"] * (n - len(cells))])
+        out += [f"## {md_cell(col)}\n",
+                md_table(["Configuration", *[f"#{i}" for i in range(1, n + 1)]], rows, align="l" * (n + 1))]
     return "\n".join(out) + "\n"
+
+
+# Report files (in RUN_DIR/report, written in this order) → writer; a new format is one entry.
+WRITERS: dict[str, Callable[[ReportParts], str]] = {
+    "table.md": lambda p: f"# {TITLE}\n\n{_table_md(p)}\n{md_cell(TABLE_NOTES)}\n",
+    "table.csv": lambda p: p.table.to_csv(index=False),
+    "table.tex": lambda p: latex_table(p.header, p.rows, caption=f"{TITLE} ({p.run_dir.name})"),
+    "worst_utterances.csv": lambda p: p.worst.to_csv(index=False),
+    "worst_utterances.md": _worst_md,
+    "recommendation.md": lambda p: f"# Recommendation\n\n{_md_text(p.text)}",
+}
 
 
 def _variant(v: Any) -> str:

@@ -1,20 +1,16 @@
-"""The quality-against-latency table: one row per configuration, four renderings.
+"""The quality-against-latency table: one row per configuration.
 
-Renderings: fixed-width text (terminal), Markdown, CSV (raw numbers, full precision) and LaTeX
-(a plain ``tabular`` written here, so no template engine is needed).
+:func:`build_table` holds the raw numbers (written as CSV, full precision); :func:`display_table`
+the formatted cells, which :mod:`vocobench.textfmt` renders as fixed-width text (terminal),
+Markdown and LaTeX (a plain ``tabular``, so no template engine is needed).
 """
 from __future__ import annotations
-
-import html
-import math
-from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
 
 from ..stats import RunStatistics, pareto_mask
-
-NA = "–"
+from ..textfmt import NA, fmt, fmt_p, interval
 
 
 def build_table(st: RunStatistics) -> pd.DataFrame:
@@ -49,39 +45,7 @@ def build_table(st: RunStatistics) -> pd.DataFrame:
     return table
 
 
-# ---------------------------------------------------------------- cell formatting
-
-def _finite(x: Any) -> float | None:
-    """``x`` as a finite float, else None (NaN, ±inf, None, not a number)."""
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return None
-    return v if math.isfinite(v) else None
-
-
-def fmt(x: Any, sig: int = 4, sign: bool = False) -> str:
-    """Number with ``sig`` significant digits; NaN/None as a dash."""
-    v = _finite(x)
-    if v is None:
-        return NA
-    return f"{v:+.{sig}g}" if sign else f"{v:.{sig}g}"
-
-
-def fmt_p(p: Any) -> str:
-    v = _finite(p)
-    if v is None:
-        return NA
-    return "<0.001" if v < 0.001 else f"{v:.3f}"
-
-
-def interval(est: Any, lo: Any, hi: Any, sign: bool = False, sig: int = 4) -> str:
-    if _finite(est) is None:
-        return NA
-    if _finite(lo) is None or _finite(hi) is None:
-        return fmt(est, sig, sign)
-    return f"{fmt(est, sig, sign)} [{fmt(lo, 3, sign)}, {fmt(hi, 3, sign)}]"
-
+# ---------------------------------------------------------------- display cells
 
 def display_table(table: pd.DataFrame, st: RunStatistics) -> tuple[list[str], list[list[str]]]:
     """Header and string cells shared by the text, Markdown and LaTeX renderings."""
@@ -111,56 +75,6 @@ def display_table(table: pd.DataFrame, st: RunStatistics) -> tuple[list[str], li
         cells.append(r["pareto"] or NA)
         rows.append(cells)
     return header, rows
-
-
-# ---------------------------------------------------------------- renderings
-
-def to_text(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
-    """Fixed-width text: first column left-aligned, the others right-aligned."""
-    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
-
-    def line(cells: Sequence[str]) -> str:
-        return "  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(cells, widths)))
-
-    out = [line(header), "  ".join("-" * w for w in widths)]
-    out += [line(r) for r in rows]
-    return "\n".join(out) + "\n"
-
-
-def md_cell(text: str) -> str:
-    """A Markdown table cell: HTML-escaped (renderers pass raw HTML) and pipes escaped."""
-    return html.escape(str(text), quote=False).replace("|", "\\|").replace("\n", " ")
-
-
-def to_markdown(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
-    out = ["| " + " | ".join(md_cell(h) for h in header) + " |",
-           "|" + "|".join([":---"] + ["---:"] * (len(header) - 1)) + "|"]
-    out += ["| " + " | ".join(md_cell(c) for c in r) + " |" for r in rows]
-    return "\n".join(out) + "\n"
-
-
-_LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
-                  "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-                  "^": r"\textasciicircum{}", "<": r"\textless{}", ">": r"\textgreater{}",
-                  "Δ": r"$\Delta$", "↑": r"$\uparrow$", "↓": r"$\downarrow$", "–": "--",
-                  "≥": r"$\geq$", "≤": r"$\leq$", "×": r"$\times$"}
-
-
-def latex_escape(text: str) -> str:
-    return "".join(_LATEX_SPECIAL.get(ch, ch) for ch in str(text))
-
-
-def to_latex(header: Sequence[str], rows: Sequence[Sequence[str]], caption: str = "") -> str:
-    """A plain LaTeX ``table``/``tabular`` (no packages beyond the LaTeX kernel)."""
-    spec = "l" + "r" * (len(header) - 1)
-    out = [r"\begin{table}[ht]", r"\centering", r"\small", rf"\begin{{tabular}}{{{spec}}}", r"\hline",
-           " & ".join(latex_escape(h) for h in header) + r" \\", r"\hline"]
-    out += [" & ".join(latex_escape(c) for c in r) + r" \\" for r in rows]
-    out += [r"\hline", r"\end{tabular}"]
-    if caption:
-        out.append(rf"\caption{{{latex_escape(caption)}}}")
-    out.append(r"\end{table}")
-    return "\n".join(out) + "\n"
 
 
 def worst_utterances(st: RunStatistics, n: int) -> pd.DataFrame:

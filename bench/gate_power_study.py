@@ -14,6 +14,10 @@ drop −0.102 PESQ over 6 seeds × 30 utterances; the studies report the realise
 Scores become in-memory runs (:func:`make_run`) that go through the real
 :func:`~vocobench.gate.compare.compare_runs`, with disjoint seeds on the two sides ("fresh
 seeds"), two seeds a side as in the demo config.
+
+A study, not part of the package: it reads the demo recordings of this repository
+(``scenarios/pier-announcements/testset``). Used by ``bench/bench_gate_power.py`` and
+``tests/test_gate_power.py``.
 """
 from __future__ import annotations
 
@@ -25,9 +29,9 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 import pandas as pd
 
-from ..store import FORMAT, Run
+from vocobench.store import FORMAT, Run
 
-DEMO_TESTSET = Path(__file__).resolve().parents[2] / "scenarios" / "pier-announcements" / "testset"
+DEMO_TESTSET = Path(__file__).resolve().parents[1] / "scenarios" / "pier-announcements" / "testset"
 VARIANTS_PER_FILE = 5
 SEGMENT_S = 1.5
 OFFSET_STEP_S = 0.25
@@ -49,7 +53,7 @@ class Variant:
 
 def utterance_variants(folder: Path = DEMO_TESTSET, sample_rate: int = 22050) -> list[Variant]:
     """The 30 segment/gain variants of the bundled recordings (see module docstring)."""
-    from ..testset import load_audio, load_testset
+    from vocobench.testset import load_audio, load_testset
 
     out = []
     for u in load_testset(folder).utterances:
@@ -67,9 +71,9 @@ class Synthesiser:
     """Analytic denoiser + metric registry, one thread (scores must not depend on BLAS threads)."""
 
     def __init__(self) -> None:
-        from ..contracts import load_plugin
-        from ..metrics import LengthPolicy, build_metrics
-        from ..schedules import make_spec
+        from vocobench.contracts import load_plugin
+        from vocobench.metrics import LengthPolicy, build_metrics
+        from vocobench.schedules import make_spec
 
         self.plugin = load_plugin("vocobench.analytic:AnalyticDenoiser")
         self.schedule = make_spec(dict(SCHEDULE)).build(STEPS, self.plugin.training_schedule)
