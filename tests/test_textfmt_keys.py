@@ -54,7 +54,7 @@ def test_number_formats():
 
 
 def test_markdown_cells_and_table_escape():
-    assert md_cell("a|b <i>&\nc") == "a\\|b &lt;i&gt;&amp; c"
+    assert md_cell("a|b <i>&\nc") == "a\\|b &lt;i>& c"          # `>` and `&` stay readable
     text = md_table(["name", "value"], [["x|y", "1"]], align="lr")
     assert text.splitlines() == ["| name | value |", "|:---|---:|", "| x\\|y | 1 |"]
     assert md_table(["a", "b"], []).splitlines()[1] == "|---|---|"

@@ -71,10 +71,11 @@ def signed_interval(est: Any, lo: Any, hi: Any, digits: int = 3) -> str:
 # ---------------------------------------------------------------- Markdown
 
 def md_cell(text: Any) -> str:
-    """Text safe in a Markdown table cell or line: HTML-escaped (Markdown renderers pass raw
-    HTML through), ``|`` escaped (it would end the cell; GitHub-flavoured Markdown spec,
-    "Tables" extension) and line breaks replaced by spaces (a row is one line)."""
-    text = html.escape(str(text), quote=False).replace("|", "\\|")
+    """Text safe in a Markdown table cell or line: ``|`` escaped (it would end the cell;
+    GitHub-flavoured Markdown spec, "Tables" extension), ``<`` written as ``&lt;`` (it could open
+    raw HTML, which renderers pass through) and line breaks replaced by spaces (a row is one
+    line). ``>`` and ``&`` stay as they are, readable in the plain file."""
+    text = str(text).replace("<", "&lt;").replace("|", "\\|")
     return text.replace("\r\n", " ").replace("\r", " ").replace("\n", " ")
 
 

@@ -24,7 +24,8 @@ from ..config import RunConfig, load_config
 from ..errors import InputError
 from ..sweep import Setup, Worker, item_rng, load_utterance, prepare, timing_utterances
 from ..timing import hardware, thread_limit, time_call
-from .compare import Comparison, ConfigResult, _config_verdict
+from .compare import Comparison, ConfigResult
+from .verdict import config_verdict
 from .latency import LatencyResult, latency_verdict, ratio_of_medians
 from .policy import Policy, resolve_policy
 
@@ -93,7 +94,7 @@ def ab_compare(baseline: "RunConfig | str | Path", candidate: "RunConfig | str |
             verdict, why = latency_verdict(r, lo, hi, len(a_rtf), len(b_rtf), pol.max_rtf_increase_pct)
             res.latency = LatencyResult(verdict, float(np.median(a_rtf)), float(np.median(b_rtf)), r,
                                         lo, hi, len(a_rtf), len(b_rtf), "A/B", why)
-            _config_verdict(res, pol)
+            config_verdict(res, pol)
             if res.verdict == "improvement":         # no metric names it: give the latency's reason
                 res.reasons = [why]
             raw[res.name] = {"baseline_rtf": a_rtf, "candidate_rtf": b_rtf}

@@ -24,7 +24,6 @@ from .policy import Policy, resolve_policy
 from .verdict import (VERDICTS, Comparison, ConfigResult, MetricResult, config_verdict, metric_brief,
                       metric_verdict)
 
-_config_verdict = config_verdict        # the name gate/ab.py imports
 
 __all__ = ["VERDICTS", "Comparison", "ConfigResult", "MetricResult", "comparability", "compare_runs",
            "metric_brief", "parse_match"]

@@ -6,6 +6,7 @@ from typing import Any, Sequence
 
 from ..config import RunConfig
 from ..errors import InputError
+from ..keys import ConfigKey
 from ..store import ITEMS, MANIFEST, TIMING, Journal, RunLock, dumps, read_jsonl, write_atomic, write_tables
 from ..timing import thread_limit
 from .dask_backend import run_dask
@@ -70,7 +71,7 @@ def run_jobs(setup: Setup, jobs: list[Job], journal: Journal, bar: Progress, wor
     def finished(rec: Record) -> None:
         journal.append(rec)
         status[rec["key"]] = rec["status"]
-        bar.step(f"{rec['utt_id']} {rec['schedule']}/{rec['sampler']}/{rec['steps']}")
+        bar.step(f"{rec['utt_id']} {ConfigKey.of(rec).label}")
 
     if scheduler or workers != 1:
         run_parallel(setup, jobs, finished, workers=workers, scheduler=scheduler)

@@ -15,6 +15,7 @@ from .. import __version__
 from ..config import RunConfig
 from ..contracts import Plugin, load_plugin
 from ..errors import InputError
+from ..keys import config_label, directed_columns
 from ..schedules import NoiseSchedule, ScheduleSpec
 from ..store import FORMAT, dumps
 from ..testset import TestSet, Utterance, load_testset
@@ -33,7 +34,7 @@ class GridPoint:
 
     @property
     def label(self) -> str:
-        return f"{self.spec.name}/{self.sampler}/{self.steps}"
+        return config_label(self.spec.name, self.sampler, self.steps)
 
     def describe(self) -> dict[str, Any]:
         return {"schedule": self.spec.name, "kind": self.spec.kind, "sampler": self.sampler,
@@ -197,7 +198,7 @@ def _check_decide(cfg: RunConfig, metrics: list[Any]) -> None:
     except ImportError:
         return
     opts = ReportOptions.from_mapping(cfg.decide, source=cfg.source)
-    columns = {c.name for m in metrics for c in m.columns if isinstance(c.higher_is_better, bool)}
+    columns = set(directed_columns(c for m in metrics for c in m.columns))
     named = [*(opts.metrics or ()), *opts.margins, *([opts.primary] if opts.primary else [])]
     for name in named:
         if name not in columns:
