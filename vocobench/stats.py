@@ -28,6 +28,7 @@ import pandas as pd
 from scipy import stats as sst
 
 from .errors import InputError
+from .params import Choice, Integer, Param, Real, Table, with_defaults
 
 CONFIG_KEYS = ("schedule", "sampler", "steps")
 DEFAULT_CONFIDENCE = 0.95               # common practice, no source
@@ -69,24 +70,29 @@ class Config:
         return cls(parts[0], parts[1], steps)
 
 
+# Settings of every bootstrap interval, declared once; the [decide] options and the gate policy
+# reuse these declarations.
+BOOTSTRAP = Table("bootstrap", [
+    Param("confidence", Real(0.5, 1, closed="left", keep_int=True), DEFAULT_CONFIDENCE,
+          "confidence level of intervals and one-sided bounds"),
+    Param("n_resamples", Integer(low=100), DEFAULT_N_RESAMPLES, "bootstrap resamples"),
+    Param("seed", Integer(low=0), DEFAULT_SEED, "bootstrap seed (recorded)"),
+    Param("method", Choice(METHODS), DEFAULT_METHOD, "bootstrap interval: " + ", ".join(METHODS)),
+], doc="Bootstrap settings (Efron 1979; BCa: Efron 1987).")
+
+
 @dataclass(frozen=True)
+@with_defaults(BOOTSTRAP)
 class BootstrapSettings:
     """Settings of every bootstrap interval in a report (recorded in the report)."""
 
-    confidence: float = DEFAULT_CONFIDENCE
-    n_resamples: int = DEFAULT_N_RESAMPLES
-    seed: int = DEFAULT_SEED
-    method: str = DEFAULT_METHOD
+    confidence: float
+    n_resamples: int
+    seed: int
+    method: str
 
     def __post_init__(self) -> None:
-        if not (0.5 <= float(self.confidence) < 1.0):
-            raise InputError("confidence must be in [0.5, 1)", field="confidence", value=self.confidence)
-        if int(self.n_resamples) < 100:
-            raise InputError("n_resamples must be at least 100", field="n_resamples",
-                             value=self.n_resamples)
-        if self.method not in METHODS:
-            raise InputError(f"bootstrap method must be one of {', '.join(METHODS)}", field="method",
-                             value=self.method)
+        BOOTSTRAP.apply(self)
 
     def describe(self) -> dict[str, Any]:
         return {"confidence": self.confidence, "n_resamples": self.n_resamples, "seed": self.seed,
