@@ -27,7 +27,7 @@ LAYERS: dict[str, int] = {
     "report": 5,
     "sweep": 6,
     "gate": 7,
-    "cli": 8,
+    "cli": 8, "docs": 8,
 }
 
 

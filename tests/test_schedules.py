@@ -110,7 +110,9 @@ def test_make_spec_rejects_unknown_kind_and_lists_the_valid_ones():
 def test_make_spec_rejects_bad_explicit_betas():
     with pytest.raises(InputError) as e:
         S.make_spec({"kind": "explicit", "betas": [0.1, 1.2]})
-    assert e.value.field == "betas"
+    # the config's field path, as for every other schedule key; β_t ∈ (0, 1) (Ho et al. 2020)
+    assert e.value.field == "sweep.schedule.betas" and e.value.value == 1.2
+    assert "(0, 1)" in str(e.value)
     with pytest.raises(InputError) as e:
         S.make_spec({"kind": "explicit", "betas": ["a", "b"]})
     assert e.value.field == "sweep.schedule.betas"

@@ -13,7 +13,7 @@ import numpy as np
 
 from .contracts import Plugin, instantiate, resolve, to_numpy
 from .errors import InputError
-from .metrics import LengthPolicy
+from .metrics import DEFAULT_TOLERANCE_HOPS, LengthPolicy
 from .outputs import waveform_problems
 from .schedules import cosine, subsequence
 
@@ -42,7 +42,8 @@ def probe_signal(sample_rate: int, seconds: float = PROBE_SECONDS) -> np.ndarray
 
 
 def check_target(target: str, options: Mapping[str, Any] | None = None,
-                 search_path: Sequence[str | Path] = (), tolerance_hops: float = 2.0) -> list[Finding]:
+                 search_path: Sequence[str | Path] = (),
+                 tolerance_hops: float = DEFAULT_TOLERANCE_HOPS) -> list[Finding]:
     try:
         obj = instantiate(resolve(target, search_path), dict(options or {}), target)
     except InputError as e:
@@ -52,7 +53,8 @@ def check_target(target: str, options: Mapping[str, Any] | None = None,
     return check_object(obj, target, tolerance_hops)
 
 
-def check_object(obj: Any, name: str = "", tolerance_hops: float = 2.0) -> list[Finding]:
+def check_object(obj: Any, name: str = "",
+                 tolerance_hops: float = DEFAULT_TOLERANCE_HOPS) -> list[Finding]:
     """Findings for a vocoder/denoiser instance; all ``ok`` means the contract holds."""
     try:
         plugin = Plugin.wrap(obj, name)

@@ -33,6 +33,7 @@ import numpy as np
 from .arrays import to_numpy
 from .errors import InputError
 from .frontend import MelFrontEnd
+from .params import is_integer
 from .samplers import available_samplers, make_plan, run_plan
 from .schedules import NoiseSchedule
 
@@ -154,7 +155,7 @@ class Plugin:
             raise InputError("object has neither predict_noise() nor __call__()", source=source,
                              field="vocoder.target", value=type(obj).__name__)
         sr = getattr(obj, "sample_rate", None)
-        if isinstance(sr, bool) or not isinstance(sr, (int, np.integer)) or sr <= 0:
+        if not is_integer(sr) or sr <= 0:
             raise InputError("must declare sample_rate as a positive integer", source=source,
                              field="sample_rate", value=sr)
         fe = MelFrontEnd.coerce(getattr(obj, "frontend", None), source)

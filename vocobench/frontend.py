@@ -16,6 +16,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from .errors import InputError
+from .params import is_integer, is_number
 
 LOG_FUNCS = {"ln": np.log, "log10": np.log10, "log2": np.log2}
 MEL_SCALES = ("slaney", "htk")
@@ -57,12 +58,11 @@ class MelFrontEnd:
 
         for name in ("sample_rate", "n_fft", "win_length", "hop_length", "n_mels"):
             v = getattr(self, name)
-            if not isinstance(v, (int, np.integer)) or isinstance(v, bool) or v <= 0:
+            if not is_integer(v) or v <= 0:
                 raise bad(name, "must be a positive integer")
         for name in ("fmin", "fmax", "floor"):
             v = getattr(self, name)
-            if not (v is None and name == "fmax") and (
-                    isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating))):
+            if not (v is None and name == "fmax") and not is_number(v):
                 raise bad(name, "must be a number")
         if self.win_length > self.n_fft:
             raise bad("win_length", f"must not exceed n_fft={self.n_fft}")

@@ -20,7 +20,10 @@ import numpy as np
 
 from .arrays import to_numpy
 from .errors import InputError
+from .params import Param, Real, Table
 from .schedules import NoiseSchedule
+
+DDIM_ETA = 0.0          # Song et al. 2021, Eq. 16: η = 0 is the deterministic DDIM sampler
 
 
 @dataclass(frozen=True)
@@ -70,7 +73,7 @@ def ddpm_plan(schedule: NoiseSchedule) -> tuple[np.ndarray, np.ndarray, np.ndarr
     return c_x, c_eps, sigma
 
 
-def ddim_plan(schedule: NoiseSchedule, eta: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def ddim_plan(schedule: NoiseSchedule, eta: float = DDIM_ETA) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     ab = schedule.alpha_bars
     ab_prev = np.concatenate([[1.0], ab[:-1]])
     sigma = eta * np.sqrt((1 - ab_prev) / (1 - ab)) * np.sqrt(1 - ab / ab_prev)
@@ -82,7 +85,15 @@ def ddim_plan(schedule: NoiseSchedule, eta: float = 0.0) -> tuple[np.ndarray, np
 PLANS: dict[str, Callable[..., tuple[np.ndarray, np.ndarray, np.ndarray]]] = {
     "ddpm": ddpm_plan, "ddim": ddim_plan,
 }
-SAMPLER_OPTIONS: dict[str, set[str]] = {"ddpm": set(), "ddim": {"eta"}}
+# Options of each built-in sampler, from a config's [sampler_options.<name>] table.
+SAMPLER_OPTIONS: dict[str, Table] = {
+    "ddpm": Table("sampler_options.ddpm", [], entry="option",
+                  doc="DDPM ancestral sampling (Ho et al. 2020)."),
+    "ddim": Table("sampler_options.ddim", [
+        Param("eta", Real(low=0, keep_int=True), DDIM_ETA,
+              "stochasticity η (0: deterministic; 1: DDPM-like noise, Song et al. 2021 Eq. 16)"),
+    ], entry="option", doc="DDIM (Song et al. 2021)."),
+}
 
 
 def available_samplers() -> list[str]:
@@ -94,12 +105,7 @@ def make_plan(sampler: str, schedule: NoiseSchedule, cond_mode: str,
     if sampler not in PLANS:
         raise InputError(f"unknown sampler; valid: {', '.join(available_samplers())}",
                          field="sweep.samplers", value=sampler)
-    opts = dict(options or {})
-    unknown = sorted(set(opts) - SAMPLER_OPTIONS[sampler])
-    if unknown:
-        raise InputError(f"option not known for sampler '{sampler}'; valid: "
-                         f"{sorted(SAMPLER_OPTIONS[sampler]) or 'none'}",
-                         field=f"sampler_options.{sampler}.{unknown[0]}", value=opts[unknown[0]])
+    opts = SAMPLER_OPTIONS[sampler].parse(options or {})
     c_x, c_eps, sigma = PLANS[sampler](schedule, **opts)
     cond, clamped = conditioning(schedule, cond_mode, training)
     r = slice(None, None, -1)                           # run from step N down to 1

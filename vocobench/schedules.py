@@ -13,6 +13,7 @@ from typing import Any, Callable, Mapping, Sequence
 import numpy as np
 
 from .errors import InputError
+from .params import Choice, ListOf, Param, Real, Table, is_integer
 
 # Ho et al. 2020, Sec. 4: T = 1000, β linear from 1e-4 to 0.02.
 DDPM_T = 1000
@@ -24,6 +25,8 @@ COSINE_MAX_BETA = 0.999
 # Kong et al. 2021, "DiffWave", fast-sampling inference schedule for the 6-step base model.
 # Values from memory of the paper/reference code, not re-checked against the paper: treat as such.
 KONG2021_FAST6 = (0.0001, 0.001, 0.01, 0.05, 0.2, 0.5)
+GEOMETRIC_BETA_END = 0.5        # our choice: ends noisy enough for few-step sweeps
+STRIDES = ("uniform", "quadratic")   # Song et al. 2021, App. D.2
 
 
 @dataclass(frozen=True)
@@ -106,7 +109,8 @@ def quadratic(n: int, beta_start: float = DDPM_BETA_START, beta_end: float = DDP
     return NoiseSchedule(b, "quadratic", params={"beta_start": beta_start, "beta_end": beta_end})
 
 
-def geometric(n: int, beta_start: float = DDPM_BETA_START, beta_end: float = 0.5) -> NoiseSchedule:
+def geometric(n: int, beta_start: float = DDPM_BETA_START,
+              beta_end: float = GEOMETRIC_BETA_END) -> NoiseSchedule:
     """β geometrically spaced: equal ratios between steps (common practice, no source)."""
     b = np.geomspace(beta_start, beta_end, _n(n))
     return NoiseSchedule(b, "geometric", params={"beta_start": beta_start, "beta_end": beta_end})
@@ -133,7 +137,7 @@ def explicit(betas: Sequence[float], name: str = "explicit") -> NoiseSchedule:
     return NoiseSchedule(b, name)
 
 
-def subsequence(training: NoiseSchedule, n: int, stride: str = "uniform") -> NoiseSchedule:
+def subsequence(training: NoiseSchedule, n: int, stride: str = STRIDES[0]) -> NoiseSchedule:
     """Sub-sequence τ of a training schedule (Song et al. 2021, DDIM, Sec. 4.2 and App. D.2).
 
     ``uniform``: τ_i = ⌊c·i⌋; ``quadratic``: τ_i = ⌊c·i²⌋, with c chosen so the last step is
@@ -166,7 +170,7 @@ def subsequence(training: NoiseSchedule, n: int, stride: str = "uniform") -> Noi
 
 
 def _n(n: int) -> int:
-    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n <= 0:
+    if not is_integer(n) or n <= 0:
         raise InputError("number of steps must be a positive integer", field="steps", value=n)
     return int(n)
 
@@ -194,7 +198,7 @@ class ScheduleSpec:
             if training is None:
                 raise InputError("a 'stride' schedule needs a denoiser with a training schedule",
                                  source=f"schedule '{self.name}'", field="kind", value=self.kind)
-            s = subsequence(training, steps, opts.get("stride", "uniform"))
+            s = subsequence(training, steps, opts.get("stride", STRIDES[0]))
         elif self.kind == "explicit":
             s = explicit(opts["betas"])
             validate_betas(s.betas, source=f"schedule '{self.name}'", length=steps)
@@ -210,9 +214,35 @@ BUILDERS: dict[str, Callable[..., NoiseSchedule]] = {
     "linear": linear, "quadratic": quadratic, "geometric": geometric, "cosine": cosine,
 }
 KINDS = sorted([*BUILDERS, "stride", "explicit", "kong2021-fast6"])
-KIND_OPTIONS = {"linear": {"beta_start", "beta_end"}, "quadratic": {"beta_start", "beta_end"},
-                "geometric": {"beta_start", "beta_end"}, "cosine": {"s", "max_beta"},
-                "stride": {"stride"}, "explicit": {"betas"}, "kong2021-fast6": set()}
+_IN_UNIT = Real(0, 1, closed="neither", keep_int=True)       # a β: 0 < β < 1
+
+
+def _kind(kind: str, doc: str, *params: Param) -> Table:
+    return Table("sweep.schedule", params, entry="option", doc=doc,
+                 title=f'`[[sweep.schedule]]` kind = "{kind}"')
+
+
+def _betas(start: float, end: float) -> tuple[Param, Param]:
+    return (Param("beta_start", _IN_UNIT, start, "β_1"), Param("beta_end", _IN_UNIT, end, "β_N"))
+
+
+# Options of each schedule kind, besides ``name`` (a label; default: the kind) and ``kind``.
+KIND_OPTIONS: dict[str, Table] = {
+    "linear": _kind("linear", "β linearly spaced (Ho et al. 2020).",
+                    *_betas(DDPM_BETA_START, DDPM_BETA_END)),
+    "quadratic": _kind("quadratic", "√β linearly spaced.", *_betas(DDPM_BETA_START, DDPM_BETA_END)),
+    "geometric": _kind("geometric", "β geometrically spaced.",
+                       *_betas(DDPM_BETA_START, GEOMETRIC_BETA_END)),
+    "cosine": _kind("cosine", "Nichol & Dhariwal 2021, Eq. 17.",
+                    Param("s", Real(low=0, closed="neither", keep_int=True), COSINE_S, "offset s"),
+                    Param("max_beta", _IN_UNIT, COSINE_MAX_BETA, "β clipped here")),
+    "stride": _kind("stride", "Sub-sequence of the denoiser's training schedule (Song et al. "
+                    "2021).", Param("stride", Choice(STRIDES), STRIDES[0],
+                                    "training steps spaced uniformly or quadratically")),
+    "explicit": _kind("explicit", "A fixed β list; the sweep's steps are its length.",
+                      Param("betas", ListOf(_IN_UNIT), doc="β_1..β_N, each in (0, 1)")),
+    "kong2021-fast6": _kind("kong2021-fast6", "The 6-step set of Kong et al. 2021 (from memory)."),
+}
 
 
 def make_spec(d: Mapping[str, Any], source: str = "config") -> ScheduleSpec:
@@ -223,25 +253,7 @@ def make_spec(d: Mapping[str, Any], source: str = "config") -> ScheduleSpec:
     if kind not in KIND_OPTIONS:
         raise InputError(f"unknown schedule kind; valid kinds: {', '.join(KINDS)}", source=source,
                          field="sweep.schedule.kind", value=kind)
-    unknown = sorted(set(d) - KIND_OPTIONS[kind])
-    if unknown:
-        raise InputError(f"option not known for schedule kind '{kind}'; valid: "
-                         f"{sorted(KIND_OPTIONS[kind]) or 'none'}", source=source,
-                         field=f"sweep.schedule.{unknown[0]}", value=d[unknown[0]])
-    if kind == "explicit":
-        if "betas" not in d:
-            raise InputError("an explicit schedule needs 'betas'", source=source,
-                             field="sweep.schedule.betas")
-        try:
-            validate_betas(np.asarray(d["betas"], dtype=np.float64), source=source)
-        except (TypeError, ValueError) as e:
-            if isinstance(e, InputError):
-                raise
-            raise InputError("β list must hold numbers", source=source,
-                             field="sweep.schedule.betas", value=d["betas"]) from None
-    if kind == "stride" and d.get("stride", "uniform") not in ("uniform", "quadratic"):
-        raise InputError("stride must be 'uniform' or 'quadratic'", source=source,
-                         field="sweep.schedule.stride", value=d["stride"])
+    KIND_OPTIONS[kind].parse(d, source, defaults=False)    # builders default to the same constants
     return ScheduleSpec(str(name), kind, d)
 
 

@@ -31,6 +31,7 @@ from scipy import stats as sst
 from .errors import InputError
 from .keys import CONFIG_KEYS, ConfigKey, directed_columns, direction
 from .keys import labels as config_labels
+from .params import Choice, Integer, Param, Real, Table, with_defaults
 from .runtables import (configurations, default_reference, failure_counts, latency_summary,
                         nfe_map, ok_mask, require_item_fields, utterance_means)
 
@@ -44,24 +45,29 @@ DEFAULT_METHOD = "BCa"                  # Efron 1987
 METHODS = ("BCa", "percentile", "basic")
 
 
+# Settings of every bootstrap interval, declared once; the [decide] options and the gate policy
+# reuse these declarations.
+BOOTSTRAP = Table("bootstrap", [
+    Param("confidence", Real(0.5, 1, closed="left", keep_int=True), DEFAULT_CONFIDENCE,
+          "confidence level of intervals and one-sided bounds"),
+    Param("n_resamples", Integer(low=100), DEFAULT_N_RESAMPLES, "bootstrap resamples"),
+    Param("seed", Integer(low=0), DEFAULT_SEED, "bootstrap seed (recorded)"),
+    Param("method", Choice(METHODS), DEFAULT_METHOD, "bootstrap interval: " + ", ".join(METHODS)),
+], doc="Bootstrap settings (Efron 1979; BCa: Efron 1987).")
+
+
 @dataclass(frozen=True)
+@with_defaults(BOOTSTRAP)
 class BootstrapSettings:
     """Settings of every bootstrap interval in a report (recorded in the report)."""
 
-    confidence: float = DEFAULT_CONFIDENCE
-    n_resamples: int = DEFAULT_N_RESAMPLES
-    seed: int = DEFAULT_SEED
-    method: str = DEFAULT_METHOD
+    confidence: float
+    n_resamples: int
+    seed: int
+    method: str
 
     def __post_init__(self) -> None:
-        if not (0.5 <= float(self.confidence) < 1.0):
-            raise InputError("confidence must be in [0.5, 1)", field="confidence", value=self.confidence)
-        if int(self.n_resamples) < 100:
-            raise InputError("n_resamples must be at least 100", field="n_resamples",
-                             value=self.n_resamples)
-        if self.method not in METHODS:
-            raise InputError(f"bootstrap method must be one of {', '.join(METHODS)}", field="method",
-                             value=self.method)
+        BOOTSTRAP.apply(self)
 
     def describe(self) -> dict[str, Any]:
         return {"confidence": self.confidence, "n_resamples": self.n_resamples, "seed": self.seed,

@@ -27,6 +27,7 @@ import numpy as np
 
 from .errors import InputError
 from .frontend import MelFrontEnd
+from .params import is_integer
 from .schedules import NoiseSchedule
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -269,7 +270,7 @@ class TorchModel:
 
     def set_threads(self, n: int) -> None:
         """``torch.set_num_threads(n)``: intra-op CPU threads, for the whole process."""
-        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n <= 0:
+        if not is_integer(n) or n <= 0:
             raise InputError("threads must be a positive integer", field="vocoder.options.threads",
                              value=n)
         _torch().set_num_threads(int(n))

@@ -22,6 +22,7 @@ import numpy as np
 
 from ..config import RunConfig, load_config
 from ..errors import InputError
+from ..params import is_integer
 from ..sweep import Setup, Worker, item_rng, load_utterance, prepare, timing_utterances
 from ..timing import hardware, thread_limit, time_call
 from .compare import Comparison, ConfigResult
@@ -48,7 +49,7 @@ def ab_compare(baseline: "RunConfig | str | Path", candidate: "RunConfig | str |
     say = progress or (lambda s: None)
     sb, sc = _setup(baseline), _setup(candidate)
     rounds = DEFAULT_AB_REPEATS if repeats is None else repeats
-    if isinstance(rounds, bool) or not isinstance(rounds, int) or rounds < 2:
+    if not is_integer(rounds) or rounds < 2:
         raise InputError("A/B repeats must be an integer ≥ 2", field="--repeats", value=rounds)
     tb, tc = sb.config.timing, sc.config.timing
     if tb.threads != tc.threads:

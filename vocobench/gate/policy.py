@@ -23,30 +23,28 @@ Allowed drop of the mean, direction-aware, in the metric's own unit:
   intervals also under-cover on very small samples (Efron & Tibshirani 1993, Ch. 14, from memory).
 * confidence **0.95** (common practice, no source).
 
-Policy file (TOML)::
+Policy file (TOML; every key optional, defaults and ranges in :data:`POLICY`, rendered in
+DEVELOPERS.md)::
 
-    min_items = 10
-    confidence = 0.95
-    max_rtf_increase_pct = 10
-    default_allow_pct = 2          # fallback for columns not listed under [allow]
+    min_items = 12
+    max_rtf_increase_pct = 5
     [allow]                        # number: in the metric's unit; "N%": of the baseline mean
-    pesq_wb = 0.05
+    pesq_wb = 0.1
     lsd = "3%"
-    [bootstrap]                    # see vocobench.stats.BootstrapSettings
-    n_resamples = 2000
-    seed = 0
-    method = "BCa"
+    [bootstrap]                    # vocobench.stats.BOOTSTRAP, less `confidence` (top level here)
+    n_resamples = 5000
 """
 from __future__ import annotations
 
 import math
-import tomllib
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Mapping
 
 from ..errors import InputError
-from ..stats import DEFAULT_CONFIDENCE, DEFAULT_METHOD, DEFAULT_N_RESAMPLES, DEFAULT_SEED, BootstrapSettings
+from ..params import (Custom, Integer, MapOf, Param, Real, Table, check, is_number, read_toml,
+                      with_defaults)
+from ..stats import BOOTSTRAP, BootstrapSettings
 
 
 @dataclass(frozen=True)
@@ -70,21 +68,45 @@ class Allowance:
         return f"{self.value:g}%" if self.relative else float(self.value)
 
 
+def _allowance(value: Any) -> Allowance:
+    """A number (metric unit) or a string ``"N%"`` (percent of the baseline mean), never negative."""
+    if isinstance(value, Allowance):
+        return value
+    rel, num = False, value
+    if isinstance(value, str):
+        text = value.strip()
+        rel = text.endswith("%")
+        try:
+            num = float(text[:-1] if rel else text)
+        except ValueError:
+            raise ValueError("allowed drop must be a number or 'N%'") from None
+    if not is_number(num) or not math.isfinite(num) or num < 0:
+        raise ValueError("allowed drop must be a finite number ≥ 0 or 'N%'")
+    return Allowance(float(num), relative=rel)
+
+
 DEFAULT_ALLOW: dict[str, Allowance] = {
     "pesq_wb": Allowance(0.05), "pesq_nb": Allowance(0.05),
     "stoi": Allowance(0.01), "estoi": Allowance(0.01),
     "mcd": Allowance(0.2), "mcd_mfcc": Allowance(0.2),
 }
-DEFAULT_ALLOW_PCT = 2.0
-DEFAULT_MAX_RTF_INCREASE_PCT = 10.0
-DEFAULT_MIN_ITEMS = 10
-
-TOP_KEYS = {"min_items", "confidence", "max_rtf_increase_pct", "default_allow_pct", "allow",
-            "bootstrap"}
-BOOTSTRAP_KEYS = {"n_resamples", "seed", "method"}
+ALLOWANCE = Custom("a number ≥ 0 (metric unit) or 'N%' (of the baseline mean)", _allowance,
+                   "number or string")
+POLICY_BOOTSTRAP = BOOTSTRAP.subset("n_resamples", "seed", "method")
+POLICY = Table("", [
+    Param("min_items", Integer(low=2), 10, "fewest paired utterances for a verdict"),
+    BOOTSTRAP["confidence"],
+    Param("max_rtf_increase_pct", Real(low=0), 10.0, "allowed RTF increase (ratio of medians), %"),
+    Param("default_allow_pct", Real(low=0), 2.0,
+          "allowed drop of a column not in `allow`, % of the baseline mean"),
+    Param("allow", MapOf(ALLOWANCE, "a table of metric = allowed drop"), {},
+          "allowed mean drop per metric column; overrides the built-in ones (see gate/policy.py)"),
+    Param("bootstrap", POLICY_BOOTSTRAP, doc="bootstrap settings"),
+], title="Gate policy file (`vocobench compare --policy FILE`)")
 
 
 @dataclass(frozen=True)
+@with_defaults(POLICY, POLICY_BOOTSTRAP)
 class Policy:
     """Thresholds of the regression gate (see the module docstring for the defaults).
 
@@ -93,37 +115,24 @@ class Policy:
     ``default_allow_pct`` of the baseline mean.
     """
 
-    allow: Mapping[str, Allowance] = field(default_factory=lambda: dict(DEFAULT_ALLOW))
-    default_allow_pct: float = DEFAULT_ALLOW_PCT
-    max_rtf_increase_pct: float = DEFAULT_MAX_RTF_INCREASE_PCT
-    min_items: int = DEFAULT_MIN_ITEMS
-    confidence: float = DEFAULT_CONFIDENCE
-    n_resamples: int = DEFAULT_N_RESAMPLES
-    seed: int = DEFAULT_SEED
-    method: str = DEFAULT_METHOD
+    allow: Mapping[str, Allowance]
+    default_allow_pct: float
+    max_rtf_increase_pct: float
+    min_items: int
+    confidence: float
+    n_resamples: int                  # n_resamples, seed, method: the file's [bootstrap] table
+    seed: int
+    method: str
     source: str = "default policy"
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "allow", {**DEFAULT_ALLOW, **dict(self.allow)})
-        for name in ("n_resamples", "seed"):
-            v = getattr(self, name)
-            if isinstance(v, bool) or not isinstance(v, int) or v < 0:
-                raise InputError("must be a non-negative integer", source=self.source,
-                                 field=f"bootstrap.{name}", value=v)
-        _check_number(self.confidence, "confidence", self.source)
-        self.settings                                   # validates confidence / resamples / method
-        _check_number(self.default_allow_pct, "default_allow_pct", self.source, lo=0.0)
-        _check_number(self.max_rtf_increase_pct, "max_rtf_increase_pct", self.source, lo=0.0)
-        if isinstance(self.min_items, bool) or not isinstance(self.min_items, int) or self.min_items < 2:
-            raise InputError("must be an integer ≥ 2", source=self.source, field="min_items",
-                             value=self.min_items)
+        POLICY.apply(self, self.source)
+        POLICY_BOOTSTRAP.apply(self, self.source)
 
     @property
     def settings(self) -> BootstrapSettings:
-        try:
-            return BootstrapSettings(self.confidence, self.n_resamples, self.seed, self.method)
-        except InputError as e:
-            raise InputError(str(e), source=self.source) from None
+        return BootstrapSettings(self.confidence, self.n_resamples, self.seed, self.method)
 
     @property
     def alpha(self) -> float:
@@ -148,28 +157,9 @@ class Policy:
                 "source": self.source}
 
 
-def _check_number(v: Any, name: str, source: str, lo: float | None = None) -> float:
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise InputError("must be a finite number", source=source, field=name, value=v)
-    if lo is not None and v < lo:
-        raise InputError(f"must be ≥ {lo:g}", source=source, field=name, value=v)
-    return float(v)
-
-
 def parse_allowance(value: Any, *, source: str, field: str) -> Allowance:
     """A number (metric unit) or a string ``"N%"`` (percent of the baseline mean), never negative."""
-    if isinstance(value, str):
-        text = value.strip()
-        rel = text.endswith("%")
-        try:
-            num = float(text[:-1] if rel else text)
-        except ValueError:
-            raise InputError("allowed drop must be a number or 'N%'", source=source, field=field,
-                             value=value) from None
-    else:
-        rel, num = False, value
-    num = _check_number(num, field, source, lo=0.0)
-    return Allowance(num, relative=rel)
+    return check(value, ALLOWANCE, field=field, source=source)
 
 
 def parse_allow_option(text: str) -> tuple[str, Allowance]:
@@ -182,42 +172,12 @@ def parse_allow_option(text: str) -> tuple[str, Allowance]:
 
 def load_policy(path: str | Path) -> Policy:
     """Read a policy TOML file (format in the module docstring); unknown keys are errors."""
-    path = Path(path)
-    src = str(path)
-    if not path.is_file():
-        raise InputError("policy file not found", source=src)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as e:
-        raise InputError(f"malformed TOML: {e}", source=src) from None
-    return policy_from_mapping(data, source=src)
+    return policy_from_mapping(read_toml(path, "policy"), source=str(path))
 
 
 def policy_from_mapping(data: Mapping[str, Any], source: str = "policy") -> Policy:
-    unknown = sorted(set(data) - TOP_KEYS)
-    if unknown:
-        raise InputError(f"unknown key; valid: {sorted(TOP_KEYS)}", source=source, field=unknown[0])
-    allow = data.get("allow", {})
-    if not isinstance(allow, Mapping):
-        raise InputError("must be a table", source=source, field="allow", value=allow)
-    boot = data.get("bootstrap", {})
-    if not isinstance(boot, Mapping):
-        raise InputError("must be a table", source=source, field="bootstrap", value=boot)
-    bad = sorted(set(boot) - BOOTSTRAP_KEYS)
-    if bad:
-        raise InputError(f"unknown key; valid: {sorted(BOOTSTRAP_KEYS)}", source=source,
-                         field=f"bootstrap.{bad[0]}")
-    base = Policy(source=source)
-    kw: dict[str, Any] = {"allow": {k: parse_allowance(v, source=source, field=f"allow.{k}")
-                                    for k, v in allow.items()}}
-    for key in ("default_allow_pct", "max_rtf_increase_pct", "confidence"):
-        if key in data:
-            kw[key] = _check_number(data[key], key, source)
-    if "min_items" in data:
-        kw["min_items"] = data["min_items"]
-    for key in BOOTSTRAP_KEYS & set(boot):
-        kw[key] = boot[key]
-    return base.updated(**kw)
+    kw = POLICY.parse(data, source, defaults=False)
+    return Policy(source=source, **kw.pop("bootstrap"), **kw)
 
 
 def resolve_policy(policy: "Policy | str | Path | Mapping[str, Any] | None") -> Policy:

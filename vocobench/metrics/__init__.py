@@ -14,7 +14,8 @@ How to add a metric
 -------------------
 Write one module in ``vocobench/metrics/`` (not named after a third-party package) with a
 subclass of :class:`Metric` that sets ``name``, a one-line ``description`` and
-``options_spec`` (a dict of :class:`~vocobench.metrics.base.Option`), and implements
+``options_spec`` (a :class:`~vocobench.params.Table` of its options: name, type, range,
+default, description, plus cross-option rules such as ``("fmin", "<", "fmax")``), and implements
 ``columns`` (a tuple of :class:`Column`: name, unit, whether higher is better, range of
 possible values, description), ``_prepare(reference, sr)`` (reference-side analysis, return
 anything picklable) and ``_score(data, estimate, sr)`` (return one float per column). Raise
@@ -27,9 +28,9 @@ test in ``tests/test_metrics_*.py`` that checks it against an outside reference.
 """
 from __future__ import annotations
 
-from .base import (DEFAULT_METRICS, REGISTRY, Column, Metric, Option, Prepared,
-                   available_metrics, build_metrics)
-from .length import LengthPolicy
+from .base import (DEFAULT_METRICS, REGISTRY, Column, Metric, Prepared, available_metrics,
+                   build_metrics)
+from .length import DEFAULT_TOLERANCE_HOPS, LENGTH_PARAMS, LengthPolicy
 
-__all__ = ["DEFAULT_METRICS", "REGISTRY", "Column", "Metric", "Option", "Prepared",
-           "LengthPolicy", "available_metrics", "build_metrics"]
+__all__ = ["DEFAULT_METRICS", "DEFAULT_TOLERANCE_HOPS", "LENGTH_PARAMS", "REGISTRY", "Column",
+           "Metric", "Prepared", "LengthPolicy", "available_metrics", "build_metrics"]

@@ -1,4 +1,4 @@
-"""Metric building blocks: result columns, options, the ``Metric`` base class and the registry.
+"""Metric building blocks: result columns, the ``Metric`` base class and the registry.
 
 A metric is split in two so that reference-side work is done once per utterance:
 ``prepare(reference, sr)`` returns an opaque, picklable state; ``score(state, estimate, sr)``
@@ -17,6 +17,7 @@ from typing import Any, ClassVar, Mapping, Sequence
 import numpy as np
 
 from ..errors import InputError, MetricUnavailable
+from ..params import Custom, Table, is_integer
 
 INF = math.inf
 
@@ -56,63 +57,19 @@ class Column:
         return asdict(self)
 
 
-@dataclass(frozen=True)
-class Option:
-    """A user-settable metric option with its default, accepted type and bounds."""
-
-    default: Any
-    kind: str                      # "int", "float", "str", "bool" or "resolutions"
-    description: str
-    choices: tuple[Any, ...] | None = None
-    low: float | None = None       # inclusive bounds for numbers
-    high: float | None = None
-    nullable: bool = False         # None allowed (means "automatic" / "off")
-
-    def parse(self, value: Any, *, source: str | None, field: str) -> Any:
-        def bad(msg: str) -> InputError:
-            return InputError(msg, source=source, field=field, value=value)
-
-        if value is None:
-            if self.nullable:
-                return None
-            raise bad("must not be empty")
-        if self.kind == "int":
-            if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-                raise bad("must be an integer")
-            value = int(value)
-        elif self.kind == "float":
-            number = (int, float, np.integer, np.floating)
-            if isinstance(value, bool) or not isinstance(value, number):
-                raise bad("must be a number")
-            value = float(value)
-            if not math.isfinite(value):
-                raise bad("must be finite")
-        elif self.kind == "str":
-            if not isinstance(value, str):
-                raise bad("must be a string")
-        elif self.kind == "bool":
-            if not isinstance(value, bool):
-                raise bad("must be true or false")
-        elif self.kind == "resolutions":
-            value = _parse_resolutions(value, bad)
-        if self.choices is not None and value not in self.choices:
-            raise bad("must be one of " + ", ".join(repr(c) for c in self.choices))
-        if self.low is not None and value < self.low:
-            raise bad(f"must be >= {self.low}")
-        if self.high is not None and value > self.high:
-            raise bad(f"must be <= {self.high}")
-        return value
-
-
-def _parse_resolutions(value: Any, bad) -> tuple[tuple[int, int, int], ...]:
+def _resolution_triples(value: Any) -> tuple[tuple[int, int, int], ...]:
     """[[n_fft, hop, win], ...] with 0 < hop, 0 < win <= n_fft."""
     try:
         out = tuple(tuple(int(v) for v in r) for r in value)
     except (TypeError, ValueError):
-        raise bad("must be a list of [n_fft, hop_length, win_length] triples") from None
+        raise ValueError("must be a list of [n_fft, hop_length, win_length] triples") from None
     if not out or any(len(r) != 3 or not (0 < r[1] and 0 < r[2] <= r[0]) for r in out):
-        raise bad("each resolution must be [n_fft, hop_length, win_length], 0 < win <= n_fft")
+        raise ValueError("each resolution must be [n_fft, hop_length, win_length], 0 < win <= n_fft")
     return out
+
+
+RESOLUTIONS = Custom("[[n_fft, hop_length, win_length], ...] with 0 < hop, 0 < win ≤ n_fft",
+                     _resolution_triples, "list of triples")
 
 
 @dataclass
@@ -130,37 +87,19 @@ class Prepared:
 
 
 class Metric(ABC):
-    """Base class. Subclasses set ``name``, ``description``, ``options_spec`` and implement
+    """Base class. Subclasses set ``name``, ``description``, ``options_spec`` (a
+    :class:`~vocobench.params.Table` of the options, with cross-option rules) and implement
     ``columns``, ``_prepare`` and ``_score``."""
 
     name: ClassVar[str]
     description: ClassVar[str]
-    options_spec: ClassVar[Mapping[str, Option]] = {}
+    options_spec: ClassVar[Table] = Table("", [], entry="option")
     needs_finite_estimate: ClassVar[bool] = True
     libraries: ClassVar[tuple[str, ...]] = ()     # distributions whose version goes in variant()
 
     def __init__(self, options: Mapping[str, Any] | None = None, *, source: str | None = None):
-        options = dict(options or {})
-        unknown = sorted(set(options) - set(self.options_spec))
-        if unknown:
-            valid = ", ".join(sorted(self.options_spec)) or "(none)"
-            raise InputError(f"unknown option '{unknown[0]}' for metric '{self.name}'; "
-                             f"valid options: {valid}", source=source,
-                             field=f"{OPTIONS_FIELD}.{self.name}.{unknown[0]}")
-        self.options: dict[str, Any] = {}
-        for key, spec in self.options_spec.items():
-            raw = options.get(key, spec.default)
-            where = f"{OPTIONS_FIELD}.{self.name}.{key}"
-            self.options[key] = spec.parse(raw, source=source, field=where)
-        self._check_options(source)
-
-    def _check_options(self, source: str | None) -> None:
-        """Cross-option checks; raise InputError (see :meth:`_option_error`)."""
-
-    def _option_error(self, key: str, message: str, source: str | None) -> InputError:
-        """InputError for option ``key`` of this metric, naming its config field and value."""
-        return InputError(message, source=source, field=f"{OPTIONS_FIELD}.{self.name}.{key}",
-                          value=self.options.get(key))
+        self.options: dict[str, Any] = self.options_spec.parse(
+            options or {}, source, where=f"{OPTIONS_FIELD}.{self.name}")
 
     # -- description -------------------------------------------------------------------------
     @property
@@ -192,8 +131,8 @@ class Metric(ABC):
         return {"name": self.name, "description": self.description,
                 "sample_rate": self.sample_rate,
                 "columns": [c.as_dict() for c in self.columns],
-                "options": {k: {"default": _jsonable(o.default), "description": o.description}
-                            for k, o in self.options_spec.items()}}
+                "options": {p.name: {"default": _jsonable(p.default), "description": p.doc}
+                            for p in self.options_spec.params}}
 
     def __repr__(self) -> str:
         return f"<metric {self.name} {self.options}>"
@@ -307,7 +246,7 @@ def _as_signal(x: Any, what: str) -> np.ndarray:
 
 
 def _as_rate(sr: Any) -> int:
-    if isinstance(sr, bool) or not isinstance(sr, (int, np.integer)) or sr <= 0:
+    if not is_integer(sr) or sr <= 0:
         raise ValueError(f"sample rate must be a positive integer, got {sr!r}")
     return int(sr)
 

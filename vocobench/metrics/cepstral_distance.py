@@ -26,7 +26,8 @@ from typing import Any
 import numpy as np
 
 from ..errors import MetricUnavailable
-from .base import INF, Column, Metric, Option
+from ..params import Choice, Integer, Param, Real, Table
+from .base import INF, Column, Metric
 from .dsp import (ENERGY_FLOOR, frame_energy_db, frame_signal, mel_filterbank, ms_to_samples,
                   nearest_pow2)
 from .warped_cepstrum import MelCepstralAnalyzer, mcd_from_cepstra, mel_alpha
@@ -41,15 +42,15 @@ NEWTON_MAX_ITER = 30
 DB_TO_NEPER_AMPLITUDE = math.log(10.0) / 20.0     # ln|X| = dB · ln(10)/20
 MFCC_POWER_FLOOR = 1e-10                           # librosa.power_to_db amin (its default)
 
-_COMMON_OPTIONS = {
-    "alignment": Option("none", "str", "frame alignment: 'none' (equal length) or 'dtw'",
-                        choices=("none", "dtw")),
-    "silence_db": Option(-40.0, "float", "drop frames this many dB below the reference's "
-                         "loudest frame (null = keep all)", high=0.0, nullable=True),
-    "frame_ms": Option(25.0, "float", "analysis frame; rounded to the nearest power of two "
-                       "in samples", low=2.0, high=200.0),
-    "hop_ms": Option(10.0, "float", "frame shift", low=0.5, high=100.0),
-}
+_COMMON_OPTIONS = (
+    Param("alignment", Choice(("none", "dtw")), "none",
+          "frame alignment: 'none' (equal length) or 'dtw'"),
+    Param("silence_db", Real(high=0.0), -40.0, "drop frames this many dB below the reference's "
+          "loudest frame (null = keep all)", nullable=True),
+    Param("frame_ms", Real(2.0, 200.0), 25.0,
+          "analysis frame (ms); rounded to the nearest power of two in samples"),
+    Param("hop_ms", Real(0.5, 100.0), 10.0, "frame shift (ms)"),
+)
 
 
 class _CepstralDistance(Metric):
@@ -131,12 +132,12 @@ class MelCepstralDistortion(_CepstralDistance):
 
     name = "mcd"
     description = "mel-cepstral distortion, warped mel-cepstra (SPTK-style), dB"
-    options_spec = {
-        "order": Option(24, "int", "mel-cepstral order M (c1..cM compared)", low=1, high=60),
-        "alpha": Option(None, "float", "all-pass constant; null = mel-scale fit for the rate",
-                        low=0.0, high=0.99, nullable=True),
-        **_COMMON_OPTIONS,
-    }
+    options_spec = Table("", [
+        Param("order", Integer(1, 60), 24, "mel-cepstral order M (c1..cM compared)"),
+        Param("alpha", Real(0.0, 0.99), None,
+              "all-pass constant; unset: mel-scale fit for the rate"),
+        *_COMMON_OPTIONS,
+    ], entry="option")
 
     def __init__(self, options=None, *, source=None):
         super().__init__(options, source=source)
@@ -194,15 +195,11 @@ class MfccDistortion(_CepstralDistance):
     window = "hann"
     periodic_window = True             # as librosa's STFT
     libraries = ("librosa",)
-    options_spec = {
-        "n_mfcc": Option(13, "int", "MFCCs computed (c1..c_{n-1} compared)", low=2, high=128),
-        "n_mels": Option(40, "int", "mel bands", low=8, high=256),
-        **_COMMON_OPTIONS,
-    }
-
-    def _check_options(self, source):
-        if self.options["n_mfcc"] > self.options["n_mels"]:
-            raise self._option_error("n_mfcc", "n_mfcc cannot exceed n_mels", source)
+    options_spec = Table("", [
+        Param("n_mfcc", Integer(2, 128), 13, "MFCCs computed (c1..c_{n-1} compared)"),
+        Param("n_mels", Integer(8, 256), 40, "mel bands"),
+        *_COMMON_OPTIONS,
+    ], entry="option", rules=[("n_mfcc", "<=", "n_mels")])
 
     @property
     def columns(self) -> tuple[Column, ...]:

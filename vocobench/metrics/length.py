@@ -18,26 +18,32 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import InputError, ItemFailure
+from ..errors import ItemFailure
+from ..params import Choice, Param, Real, Table, is_integer
 
 LENGTH_MODES = ("trim", "pad")
+# Our choice: a few samples of padding per frame edge are normal, two hops are not a broken output.
+DEFAULT_TOLERANCE_HOPS = 2.0
+# The [metrics] keys of the length policy (the run config reuses these declarations).
+LENGTH_PARAMS = (
+    Param("length_mode", Choice(LENGTH_MODES), LENGTH_MODES[0],
+          "equal lengths by 'trim' (both cut to the shorter) or 'pad' (output padded or cut)"),
+    Param("length_tolerance_hops", Real(low=0, keep_int=True), DEFAULT_TOLERANCE_HOPS,
+          "largest output/reference length difference, in vocoder hops, before the item fails"),
+)
+_LENGTH = Table("metrics", LENGTH_PARAMS)
 
 
 @dataclass(frozen=True)
 class LengthPolicy:
     """Equalise reference/output lengths; fail beyond ``tolerance_hops`` vocoder hops."""
 
-    mode: str = "trim"
-    tolerance_hops: float = 2.0
+    mode: str = LENGTH_MODES[0]
+    tolerance_hops: float = DEFAULT_TOLERANCE_HOPS
 
     def __post_init__(self) -> None:
-        if self.mode not in LENGTH_MODES:
-            raise InputError(f"must be one of {', '.join(LENGTH_MODES)}",
-                             field="metrics.length_mode", value=self.mode)
-        t = self.tolerance_hops
-        if isinstance(t, bool) or not isinstance(t, (int, float)) or not math.isfinite(t) or t < 0:
-            raise InputError("must be a finite number >= 0",
-                             field="metrics.length_tolerance_hops", value=t)
+        _LENGTH.check("length_mode", self.mode)
+        _LENGTH.check("length_tolerance_hops", self.tolerance_hops)
 
     def tolerance_samples(self, hop_length: int) -> int:
         return int(math.floor(self.tolerance_hops * hop_length))
@@ -48,8 +54,7 @@ class LengthPolicy:
 
         Raises ItemFailure when |len(estimate) − len(reference)| > tolerance_hops·hop_length.
         """
-        if isinstance(hop_length, bool) or not isinstance(hop_length, (int, np.integer)) \
-                or hop_length <= 0:
+        if not is_integer(hop_length) or hop_length <= 0:
             raise ValueError(f"hop_length must be a positive integer, got {hop_length!r}")
         ref, est = np.asarray(reference), np.asarray(estimate)
         if ref.ndim != 1 or est.ndim != 1:

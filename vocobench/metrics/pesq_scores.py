@@ -16,7 +16,8 @@ from typing import Any, ClassVar
 import numpy as np
 
 from ..errors import MetricUnavailable
-from .base import Column, Metric, Option
+from ..params import Choice, Param, Table
+from .base import Column, Metric
 from .dsp import RESAMPLERS, resample
 
 # ITU-T P.862: the raw PESQ score lies in [-0.5, 4.5] (from memory of the standard).
@@ -38,9 +39,9 @@ class _Pesq(Metric):
     mapping: ClassVar[tuple[float, float, float, float]]
     standard: ClassVar[str]
     libraries = ("pesq", "soxr", "scipy")
-    options_spec = {
-        "resampler": Option("soxr_vhq", "str", "resampler to the PESQ rate", choices=RESAMPLERS),
-    }
+    options_spec = Table("", [
+        Param("resampler", Choice(RESAMPLERS), RESAMPLERS[0], "resampler to the PESQ rate"),
+    ], entry="option")
 
     @property
     def sample_rate(self) -> int:

@@ -23,7 +23,8 @@ from typing import Any
 import numpy as np
 
 from ..errors import MetricUnavailable
-from .base import INF, Column, Metric, Option
+from ..params import Param, Real, Table
+from .base import INF, Column, Metric
 from .dsp import frame_energy_db, frame_signal, ms_to_samples
 
 CENTS_PER_OCTAVE = 1200.0
@@ -38,19 +39,15 @@ class PitchError(Metric):
     name = "f0"
     description = "F0 RMSE in cents (frames voiced in both), GPE and voicing decision error"
     libraries = ("librosa",)
-    options_spec = {
-        "fmin": Option(50.0, "float", "lowest F0 searched (Hz)", low=20.0, high=1000.0),
-        "fmax": Option(600.0, "float", "highest F0 searched (Hz)", low=40.0, high=4000.0),
-        "hop_ms": Option(10.0, "float", "frame shift", low=1.0, high=50.0),
-        "voicing_threshold": Option(0.5, "float", "min normalised autocorrelation at the F0 "
-                                    "period for a voiced frame", low=0.0, high=1.0),
-        "silence_db": Option(-40.0, "float", "frames this far below the signal's loudest frame "
-                             "are unvoiced", high=0.0),
-    }
-
-    def _check_options(self, source):
-        if self.options["fmin"] >= self.options["fmax"]:
-            raise self._option_error("fmin", "fmin must be below fmax", source)
+    options_spec = Table("", [
+        Param("fmin", Real(20.0, 1000.0), 50.0, "lowest F0 searched (Hz)"),
+        Param("fmax", Real(40.0, 4000.0), 600.0, "highest F0 searched (Hz)"),
+        Param("hop_ms", Real(1.0, 50.0), 10.0, "frame shift (ms)"),
+        Param("voicing_threshold", Real(0.0, 1.0), 0.5,
+              "min normalised autocorrelation at the F0 period for a voiced frame"),
+        Param("silence_db", Real(high=0.0), -40.0,
+              "frames this far below the signal's loudest frame are unvoiced"),
+    ], entry="option", rules=[("fmin", "<", "fmax")])
 
     @property
     def columns(self) -> tuple[Column, ...]:

@@ -10,7 +10,8 @@ import math
 
 import numpy as np
 
-from .base import INF, Column, Metric, Option
+from ..params import Param, Real, Table
+from .base import INF, Column, Metric
 
 # |x| at or above this fraction of full scale counts as clipped (our choice: float outputs that
 # were hard-limited sit at exactly 1.0, 16-bit ones at 32767/32768 ≈ 0.99997).
@@ -24,10 +25,9 @@ class SignalChecks(Metric):
     name = "signal"
     description = "output sanity: peak, clipped fraction, DC offset, NaN/inf, level vs reference"
     needs_finite_estimate = False
-    options_spec = {
-        "clip_level": Option(CLIP_LEVEL, "float", "|x| at or above this is clipped",
-                             low=0.01, high=10.0),
-    }
+    options_spec = Table("", [
+        Param("clip_level", Real(0.01, 10.0), CLIP_LEVEL, "|x| at or above this is clipped"),
+    ], entry="option")
 
     @property
     def columns(self) -> tuple[Column, ...]:

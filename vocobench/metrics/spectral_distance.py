@@ -8,7 +8,8 @@ from typing import Any
 import numpy as np
 
 from ..errors import MetricUnavailable
-from .base import INF, Column, Metric, Option
+from ..params import Integer, Param, Real, Table
+from .base import INF, RESOLUTIONS, Column, Metric
 from .dsp import mel_filterbank, stft_power
 
 # Log-spectral distance floor on |X|² (our choice): keeps log(0) out of silent bins.
@@ -33,10 +34,10 @@ class LogSpectralDistance(Metric):
 
     name = "lsd"
     description = "log-spectral distance, dB (STFT power, mean over frames)"
-    options_spec = {
-        "n_fft": Option(2048, "int", "FFT size", low=64, high=16384),
-        "hop_length": Option(512, "int", "frame shift in samples", low=1, high=16384),
-    }
+    options_spec = Table("", [
+        Param("n_fft", Integer(64, 16384), 2048, "FFT size"),
+        Param("hop_length", Integer(1, 16384), 512, "frame shift in samples"),
+    ], entry="option")
 
     @property
     def columns(self) -> tuple[Column, ...]:
@@ -65,10 +66,10 @@ class MultiResolutionStft(Metric):
 
     name = "mrstft"
     description = "multi-resolution STFT distance (Parallel WaveGAN): SC + log-magnitude"
-    options_spec = {
-        "resolutions": Option(PWG_RESOLUTIONS, "resolutions",
-                              "[[n_fft, hop_length, win_length], ...] (Hann window)"),
-    }
+    options_spec = Table("", [
+        Param("resolutions", RESOLUTIONS, PWG_RESOLUTIONS,
+              "[[n_fft, hop_length, win_length], ...] (Hann window)"),
+    ], entry="option")
 
     @property
     def columns(self) -> tuple[Column, ...]:
@@ -106,20 +107,15 @@ class LogMelL1(Metric):
     name = "logmel_l1"
     description = "L1 distance of log-mel spectrograms (HiFi-GAN validation mel error)"
     libraries = ("librosa",)
-    options_spec = {
-        "n_fft": Option(HIFIGAN_MEL["n_fft"], "int", "FFT size", low=64, high=16384),
-        "hop_length": Option(HIFIGAN_MEL["hop_length"], "int", "frame shift", low=1, high=16384),
-        "win_length": Option(HIFIGAN_MEL["win_length"], "int", "window length", low=16,
-                             high=16384),
-        "n_mels": Option(HIFIGAN_MEL["n_mels"], "int", "mel bands", low=8, high=512),
-        "fmin": Option(HIFIGAN_MEL["fmin"], "float", "lowest mel edge (Hz)", low=0.0),
-        "fmax": Option(HIFIGAN_MEL["fmax"], "float", "highest mel edge (Hz), capped at sr/2",
-                       low=100.0),
-    }
-
-    def _check_options(self, source):
-        if self.options["win_length"] > self.options["n_fft"]:
-            raise self._option_error("win_length", "win_length cannot exceed n_fft", source)
+    options_spec = Table("", [
+        Param("n_fft", Integer(64, 16384), HIFIGAN_MEL["n_fft"], "FFT size"),
+        Param("hop_length", Integer(1, 16384), HIFIGAN_MEL["hop_length"], "frame shift"),
+        Param("win_length", Integer(16, 16384), HIFIGAN_MEL["win_length"], "window length"),
+        Param("n_mels", Integer(8, 512), HIFIGAN_MEL["n_mels"], "mel bands"),
+        Param("fmin", Real(low=0.0), HIFIGAN_MEL["fmin"], "lowest mel edge (Hz)"),
+        Param("fmax", Real(low=100.0), HIFIGAN_MEL["fmax"],
+              "highest mel edge (Hz), capped at sr/2"),
+    ], entry="option", rules=[("win_length", "<=", "n_fft")])
 
     @property
     def columns(self) -> tuple[Column, ...]:

@@ -7,6 +7,7 @@ from typing import Any, Sequence
 from ..config import RunConfig
 from ..errors import InputError
 from ..keys import ConfigKey
+from ..params import is_integer
 from ..store import ITEMS, MANIFEST, TIMING, Journal, RunLock, dumps, read_jsonl, write_atomic, write_tables
 from ..timing import thread_limit
 from .dask_backend import run_dask
@@ -26,7 +27,7 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
     item journalled the moment it finishes), then the timing phase alone, then the reports.
     """
     n_workers = cfg.workers if workers is None else workers
-    if isinstance(n_workers, bool) or not isinstance(n_workers, int) or n_workers < 1:
+    if not is_integer(n_workers) or n_workers < 1:
         raise InputError("must be a positive integer", field="workers", value=n_workers)
     setup = prepare(cfg, out_dir)
     out = setup.out_dir
