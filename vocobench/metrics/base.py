@@ -8,6 +8,7 @@ returns one float per column. Both validate their inputs here, so metric modules
 from __future__ import annotations
 
 import importlib
+import importlib.util
 import math
 from abc import ABC, abstractmethod
 from dataclasses import asdict, dataclass, field
@@ -33,9 +34,11 @@ REGISTRY: dict[str, str] = {
     "logmel_l1": "spectral_distance:LogMelL1",
     "f0": "pitch_error:PitchError",
     "signal": "signal_checks:SignalChecks",
+    "dnsmos": "nonintrusive_mos:Dnsmos",
 }
 
 DEFAULT_METRICS: tuple[str, ...] = ("mcd", "pesq_wb", "stoi")
+METRICS_EXTRA = "quality"      # the optional extra (pyproject.toml) of metrics that need one
 
 # Config keys named in InputError messages (the [metrics] table of the run config).
 NAMES_FIELD = "metrics.use"
@@ -138,6 +141,12 @@ class Metric(ABC):
     options_spec: ClassVar[Mapping[str, Option]] = {}
     needs_finite_estimate: ClassVar[bool] = True
     libraries: ClassVar[tuple[str, ...]] = ()     # distributions whose version goes in variant()
+    requires: ClassVar[tuple[str, ...]] = ()      # importable modules of an optional extra
+    # True: the metric aligns the signals itself (e.g. DTW) and scores an estimate of any length
+    # against the whole reference (no cut of the reference under the "trim" policy)
+    any_length: ClassVar[bool] = False
+    # where a user's metric came from (target, code fingerprint, version); recorded by variant()
+    provenance: ClassVar[Mapping[str, Any]] = {}
 
     def __init__(self, options: Mapping[str, Any] | None = None, *, source: str | None = None):
         options = dict(options or {})
@@ -182,7 +191,15 @@ class Metric(ABC):
         if self.libraries:
             out["libraries"] = {lib: _version(lib) for lib in self.libraries}
         out.update(_jsonable(self._variant(sample_rate)))
+        if sample_rate and self.caution(sample_rate):
+            out["caution"] = self.caution(sample_rate)
+        if self.provenance:
+            out["provenance"] = _jsonable(dict(self.provenance))
         return out
+
+    def caution(self, sample_rate: int) -> str | None:
+        """A warning about using this metric on audio at ``sample_rate`` (None if none)."""
+        return None
 
     def _variant(self, sample_rate: int | None) -> dict[str, Any]:
         return {}
@@ -223,12 +240,14 @@ class Metric(ABC):
         sr = _as_rate(sr)
         if not isinstance(state, Prepared) or state.metric != self.name:
             raise ValueError(f"state was not prepared by metric '{self.name}'")
-        if sr == state.sample_rate and est.size < state.length and state.reference is not None:
+        if sr == state.sample_rate and est.size != state.length and self.any_length:
+            pass                           # aligns the signals itself: keep the whole reference
+        elif sr == state.sample_rate and est.size < state.length and state.reference is not None:
             cut = state.trimmed.get(est.size)
             if cut is None:
                 cut = state.trimmed[est.size] = self.prepare(state.reference[: est.size], sr)
             state = cut
-        if sr != state.sample_rate or est.size != state.length:
+        if sr != state.sample_rate or (est.size != state.length and not self.any_length):
             raise ValueError(f"estimate ({est.size} samples at {sr} Hz) does not match the "
                              f"prepared reference ({state.length} at {state.sample_rate} Hz); "
                              "apply the length policy first")
@@ -260,12 +279,16 @@ def metric_class(name: str) -> type[Metric]:
 def build_metrics(names: Sequence[str] = DEFAULT_METRICS,
                   options: Mapping[str, Mapping[str, Any]] | None = None,
                   source: str | None = None) -> list[Metric]:
-    """Instantiate metrics by registry name with per-metric ``options``.
+    """Instantiate metrics by registry name, or a user's ``package.module:object`` /
+    ``file.py:object`` target (see :mod:`.external`), with per-metric ``options``.
 
-    Raises InputError for an unknown name, an unknown option or a bad option value.
+    Raises InputError for an unknown name, an unknown option or a bad option value, a metric
+    whose optional extra is not installed, and metric or column names used twice.
     Options for known metrics that are not selected are checked too (typos surface early).
     """
-    valid = ", ".join(REGISTRY)
+    from .external import check_distinct, is_target, load_metric
+
+    valid = ", ".join(REGISTRY) + ", or a 'package.module:object' target"
     if isinstance(names, str) or not isinstance(names, Sequence):
         raise InputError("must be a list of metric names", source=source, field=NAMES_FIELD,
                          value=names)
@@ -275,7 +298,7 @@ def build_metrics(names: Sequence[str] = DEFAULT_METRICS,
     options = dict(options or {})
     for keys, where in ((names, NAMES_FIELD), (options, OPTIONS_FIELD)):
         for key in keys:
-            if key not in REGISTRY:
+            if key not in REGISTRY and not is_target(key):
                 raise InputError(f"unknown metric '{key}'; valid names: {valid}", source=source,
                                  field=where, value=key)
     seen = set()
@@ -289,8 +312,28 @@ def build_metrics(names: Sequence[str] = DEFAULT_METRICS,
             raise InputError("metric options must be a table of name = value", source=source,
                              field=f"{OPTIONS_FIELD}.{key}", value=opts)
         if key not in seen:
+            if is_target(key):
+                raise InputError("options for a metric target that is not in [metrics] use",
+                                 source=source, field=f"{OPTIONS_FIELD}.{key}", value=key)
             metric_class(key)(opts, source=source)
-    return [metric_class(n)(options.get(n), source=source) for n in names]
+    built = [load_metric(n, options.get(n), source) if is_target(n) else
+             _builtin(n, options.get(n), source) for n in names]
+    check_distinct(built, source)
+    return built
+
+
+def missing_requirements(name: str) -> list[str]:
+    """Modules of the optional extra that registered metric ``name`` needs and cannot import."""
+    return [m for m in metric_class(name).requires if importlib.util.find_spec(m) is None]
+
+
+def _builtin(name: str, opts: Mapping[str, Any] | None, source: str | None) -> Metric:
+    missing = missing_requirements(name)
+    if missing:
+        raise InputError(f"metric '{name}' needs {', '.join(missing)} (not installed): "
+                         f"pip install 'vocobench[{METRICS_EXTRA}]'", source=source,
+                         field=NAMES_FIELD, value=name)
+    return metric_class(name)(opts, source=source)
 
 
 def available_metrics() -> list[dict[str, Any]]:
