@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import hashlib
 import importlib
-import inspect
 import os
 import sys
 import types
@@ -108,9 +107,7 @@ def _module_of(target: Any) -> types.ModuleType:
         except Exception as e:
             raise InputError(f"cannot import '{target}': {type(e).__name__}: {e}",
                              field="fingerprint", value=target) from None
-    obj = target if inspect.isclass(target) or callable(target) and hasattr(target, "__module__") \
-        else type(target)
-    name = getattr(obj, "__module__", None)
+    name = getattr(target, "__module__", None) or type(target).__module__   # class, function
     module = sys.modules.get(name) if name else None
     if module is None:
         raise InputError("the object's module is not loaded", field="fingerprint",

@@ -191,8 +191,9 @@ class Metric(ABC):
         if self.libraries:
             out["libraries"] = {lib: _version(lib) for lib in self.libraries}
         out.update(_jsonable(self._variant(sample_rate)))
-        if sample_rate and self.caution(sample_rate):
-            out["caution"] = self.caution(sample_rate)
+        note = self.caution(sample_rate) if sample_rate else None
+        if note:
+            out["caution"] = note
         if self.provenance:
             out["provenance"] = _jsonable(dict(self.provenance))
         return out
@@ -234,15 +235,16 @@ class Metric(ABC):
         """Score ``estimate`` against the prepared reference. Raises MetricUnavailable.
 
         An estimate shorter than the prepared reference (the "trim" length policy) is scored
-        against the reference cut to its length, prepared once per length and kept on ``state``.
+        against the reference cut to its length, prepared once per length and kept on ``state``
+        — except by metrics with ``any_length`` (they align the signals themselves and take an
+        estimate of any length against the whole reference).
         """
         est = _as_signal(estimate, "estimate")
         sr = _as_rate(sr)
         if not isinstance(state, Prepared) or state.metric != self.name:
             raise ValueError(f"state was not prepared by metric '{self.name}'")
-        if sr == state.sample_rate and est.size != state.length and self.any_length:
-            pass                           # aligns the signals itself: keep the whole reference
-        elif sr == state.sample_rate and est.size < state.length and state.reference is not None:
+        if sr == state.sample_rate and est.size < state.length and state.reference is not None \
+                and not self.any_length:
             cut = state.trimmed.get(est.size)
             if cut is None:
                 cut = state.trimmed[est.size] = self.prepare(state.reference[: est.size], sr)

@@ -61,7 +61,8 @@ class ObjectMetric(Metric):
         self.obj = obj
         self.target = target
         self.name = _identifier(getattr(obj, "name", None), "name", target, source)
-        self.options = dict(options or {})
+        super().__init__(None, source=source)          # no options_spec: the object's own
+        self.options = dict(options or {})             # constructor took and checked them
         self.description = str(getattr(obj, "description", "") or f"user metric {target}")
         self.needs_finite_estimate = bool(getattr(obj, "needs_finite_estimate", True))
         for method in ("prepare", "score"):

@@ -23,7 +23,7 @@ Trackers, each returning ``(f0 in Hz clamped to [fmin, fmax], voiced flag)``:
 
 :func:`periodicity` — per frame, the peak over lags ``[1/fmax, 1/fmin]`` of the normalised
 autocorrelation of the Hann-windowed, mean-removed frame divided by the window's own normalised
-autocorrelation (Boersma 1993, eq. 9), peak refined by parabolic interpolation, clipped to
+autocorrelation (Boersma 1993; equation number not checked, from memory), peak refined by parabolic interpolation, clipped to
 ``[0, 1]``. For a periodic signal in white noise it estimates ``S/(S+N)``, i.e.
 ``HNR = 10·log10(r/(1−r))`` (Boersma 1993).
 """
@@ -42,12 +42,13 @@ YIN_TROUGH_THRESHOLD = 0.1
 # Median smoothing of the YIN track (Rabiner, Sambur & Schmidt 1975, "Applications of a nonlinear
 # smoothing algorithm to speech processing", IEEE TASSP): 5 frames, our choice of length.
 YIN_MEDIAN_FRAMES = 5
-# Praat "To Pitch (ac)" standard settings (Praat manual, Sound: To Pitch (ac)...; Boersma 1993).
+# Praat "To Pitch (ac)" standard settings: the defaults of parselmouth's to_pitch_ac, which mirror
+# the Praat dialog (Praat manual, Sound: To Pitch (ac)...).
 PRAAT_AC_SETTINGS = {"max_number_of_candidates": 15, "very_accurate": False,
                      "silence_threshold": 0.03, "voicing_threshold": 0.45, "octave_cost": 0.01,
                      "octave_jump_cost": 0.35, "voiced_unvoiced_cost": 0.14}
 # Analysis window of the periodicity measure: three periods of the lowest F0, as Praat's pitch
-# analysis (Boersma 1993, section 4).
+# analysis uses (Praat manual, "Sound: To Pitch (ac)...": window of 3 periods of the pitch floor).
 PERIODICITY_PERIODS = 3.0
 
 
