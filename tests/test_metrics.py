@@ -13,6 +13,13 @@ from test_metrics_synth import speech_like
 from vocobench.errors import InputError, ItemFailure, MetricUnavailable
 from vocobench.metrics import (DEFAULT_METRICS, REGISTRY, Column, LengthPolicy, Metric,
                                available_metrics, build_metrics)
+from vocobench.metrics.base import missing_requirements
+
+# Metrics whose optional extra is installed; the others are skipped with the reason shown.
+INSTALLED = [n for n in REGISTRY if not missing_requirements(n)]
+EVERY_METRIC = [n if n in INSTALLED else pytest.param(n, marks=pytest.mark.skip(
+    reason=f"needs {', '.join(missing_requirements(n))} (optional extra 'quality')"))
+    for n in REGISTRY]
 
 SR = 22050
 
@@ -74,7 +81,7 @@ def test_available_metrics_listing_is_complete_and_consistent():
 
 
 def test_variant_is_json_and_resolves_rate_dependent_settings():
-    for m in build_metrics(list(REGISTRY)):
+    for m in build_metrics(INSTALLED):
         json.dumps(m.variant(), allow_nan=False)
         json.dumps(m.variant(SR), allow_nan=False)
     mcd = build_metrics(["mcd"])[0].variant(SR)
@@ -85,9 +92,10 @@ def test_variant_is_json_and_resolves_rate_dependent_settings():
 
 def test_import_is_lazy():
     # Brief: importing and building metrics must not import librosa / pesq / pystoi / soxr.
-    code = ("import sys, vocobench.metrics as m; m.build_metrics(list(m.REGISTRY)); "
+    code = (f"import sys, vocobench.metrics as m; m.build_metrics({INSTALLED!r}); "
             "m.available_metrics(); "
-            "print([k for k in ('librosa', 'pesq', 'pystoi', 'soxr') if k in sys.modules])")
+            "print([k for k in ('librosa', 'pesq', 'pystoi', 'soxr', 'onnxruntime', 'speechmos', "
+            "'parselmouth') if k in sys.modules])")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
 
@@ -114,7 +122,7 @@ def test_score_contract_and_unavailable_paths():
         m.score(nan_ref, x, SR)
 
 
-@pytest.mark.parametrize("name", list(REGISTRY))
+@pytest.mark.parametrize("name", EVERY_METRIC)
 def test_every_metric_survives_silence_and_tiny_inputs(name):
     # Brief: never crash for a legit-but-unscorable input (silent or very short audio).
     m = build_metrics([name])[0]
@@ -210,3 +218,16 @@ def test_metrics_and_states_pickle():
         state = m.prepare(x, SR)
         m2, state2 = pickle.loads(pickle.dumps((m, state)))
         assert m2.score(state2, y, SR) == m.score(state, y, SR)
+
+
+def test_metric_without_its_extra_is_a_config_error(monkeypatch):
+    # An optional extra that is missing must stop the run before it starts, naming the install.
+    import importlib.util
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec",
+                        lambda name, *a: None if name == "onnxruntime" else real(name, *a))
+    with pytest.raises(InputError, match=r"onnxruntime.*vocobench\[quality\]") as exc:
+        build_metrics(["stoi", "dnsmos"], source="cfg.toml")
+    assert exc.value.field == "metrics.use"
+    assert "dnsmos" in [d["name"] for d in available_metrics()]     # still listed

@@ -4,6 +4,7 @@ from __future__ import annotations
 import math
 import sys
 import types
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -119,6 +120,83 @@ def test_dtw_recovers_a_frame_shift():
     assert v_dtw["mcd"] < 0.1 * v_plain["mcd"]
     n_keep = v_plain["mcd_frames"]
     assert v_dtw["mcd_frames"] >= n_keep - 5      # path spans (nearly) all non-silent frames
+
+
+def _speech_file(name="male"):
+    import soundfile as sf
+
+    x, sr = sf.read(str(Path(__file__).resolve().parent / "data" / f"speech_{name}.wav"),
+                    dtype="float64")
+    return x, sr
+
+
+def _sptk_mcd_dtw(ref, est, sr, order=24, silence_db=-40.0):
+    """DTW-aligned MCD with SPTK's mcep (pysptk) on all non-silent frames of both signals,
+    aligned by dynamic time warping (Sakoe & Chiba 1978; librosa.sequence.dtw on Euclidean
+    cepstral distances), mean Kubichek distance along the path."""
+    import librosa
+    from scipy.spatial.distance import cdist
+
+    pysptk = _pysptk()
+    length, hop = 2 ** round(math.log2(0.025 * sr)), round(0.010 * sr)
+    alpha = pysptk.util.mcepalpha(sr)
+    fr, fe = _frames(ref, length, hop), _frames(est, length, hop)
+    threshold = (10 * np.log10(np.sum(fr ** 2, axis=1) + 1e-20)).max() + silence_db
+    win = np.blackman(length)
+
+    def cep(frames):
+        keep = 10 * np.log10(np.sum(frames ** 2, axis=1) + 1e-20) >= threshold
+        return np.array([pysptk.sptk.mcep(f * win, order, alpha, etype=1, eps=1e-10)
+                         for f in frames[keep]])[:, 1:]
+
+    cr, ce = cep(fr), cep(fe)
+    _, path = librosa.sequence.dtw(C=cdist(cr, ce), backtrack=True)
+    return float(np.mean(mcd_from_cepstra(cr[path[:, 0]], ce[path[:, 1]])))
+
+
+def test_dtw_scores_a_shorter_estimate_against_the_whole_reference():
+    # Review defect: the Python API cut the reference to a shorter estimate before DTW, dropping
+    # the reference's tail (our pair: 8.222 dB instead of 7.911). DTW aligns sequences of any
+    # length, so the whole reference must be used: the value equals the run path with the "pad"
+    # length policy (estimate zero-padded, silent padding frames dropped) and SPTK + DTW.
+    import librosa
+
+    x, sr = _speech_file("male")
+    est = librosa.effects.time_stretch(x, rate=1.15)             # 1/1.15 of the duration
+    m = build_metrics(["mcd"], options={"mcd": {"alignment": "dtw"}})[0]
+    state = m.prepare(x, sr)
+    short = m.score(state, est, sr)
+    padded = m.score(state, np.concatenate([est, np.zeros(x.size - est.size)]), sr)
+    assert short == padded
+    assert short["mcd"] == pytest.approx(_sptk_mcd_dtw(x, est, sr), abs=0.01)
+    cut = m.score(m.prepare(x[: est.size], sr), est, sr)["mcd"]
+    assert abs(cut - short["mcd"]) > 0.1                          # the old, cut-reference value
+    longer = m.score(state, np.concatenate([x, np.zeros(1000)]), sr)   # longer is scored too
+    assert longer["mcd"] == pytest.approx(0.0, abs=1e-9)
+
+
+def test_relative_floor_makes_mcd_level_independent():
+    # The periodogram floor (SPTK mcep -e 1e-10) fills empty bands of a band-limited output; at
+    # lower levels it fills them relatively higher, so the absolute floor gives a smaller MCD for
+    # the same pair played quieter (measured: 29.2 / 21.8 / 14.8 dB at 0 / -20 / -40 dB peak).
+    # With floor = "relative" the floor scales with the reference's squared peak: a common gain
+    # of both signals leaves every cepstrum but c0 unchanged (log of a scaled spectrum), so MCD
+    # is the same at every level, and equals the SPTK-faithful value at a full-scale peak.
+    from scipy.signal import butter, sosfiltfilt
+
+    x, sr = _speech_file("male")
+    est = sosfiltfilt(butter(12, 3000, fs=sr, output="sos"), x)
+    values = {}
+    for floor in ("absolute", "relative"):
+        m = build_metrics(["mcd"], options={"mcd": {"floor": floor}})[0]
+        values[floor] = []
+        for db in (0.0, -20.0, -40.0):
+            g = 10 ** (db / 20) / np.max(np.abs(x))
+            values[floor].append(m.score(m.prepare(g * x, sr), g * est, sr)["mcd"])
+    a, r = values["absolute"], values["relative"]
+    assert a[0] > a[1] + 3 > a[2] + 6                              # level-dependent
+    assert r[1] == pytest.approx(r[0], abs=1e-6) and r[2] == pytest.approx(r[0], abs=1e-6)
+    assert r[0] == pytest.approx(a[0], abs=1e-9)
 
 
 def test_mcd_mfcc_equals_librosa_mfcc_kubichek():

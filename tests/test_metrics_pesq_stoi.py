@@ -106,3 +106,16 @@ def test_stoi_too_short_is_unavailable(speech):
     short = speech[: int(0.3 * SR)]
     with pytest.raises(MetricUnavailable):
         m.score(m.prepare(short, SR), short, SR)
+
+
+def test_pesq_wb_on_8_khz_audio_carries_a_caution():
+    # P.862.2 is wide-band (16 kHz): 8 kHz audio is upsampled and has nothing above 4 kHz, which
+    # the model scores as a band limitation. The caution goes into variant() (the manifest) and is
+    # warned once; at 16 kHz and above there is none.
+    m = build_metrics(["pesq_wb"])[0]
+    assert "upsampled" in m.variant(8000)["caution"]
+    assert "caution" not in m.variant(16000) and "caution" not in m.variant(22050)
+    x = speech_like(8000, 1.0)
+    with pytest.warns(UserWarning, match="upsampled to 16000 Hz"):
+        m.prepare(x, 8000)
+    assert "caution" not in build_metrics(["pesq_nb"])[0].variant(8000)

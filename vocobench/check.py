@@ -148,3 +148,89 @@ def _check_synthesis(plugin: Plugin, sampler: str, feats: np.ndarray, sched: Any
                        "" if differs else "different seeds gave identical audio: the generator "
                        "passed in is ignored"))
     return res
+
+
+# -- metric objects (``vocobench check --metric TARGET``) ------------------------------------------
+METRIC_PROBE_RATE = 16000
+METRIC_PROBE_SECONDS = 1.0
+METRIC_PROBE_SNR_DB = 10.0
+
+
+def check_metric_target(target: str, options: Mapping[str, Any] | None = None,
+                        search_path: Sequence[str | Path] = ()) -> list[Finding]:
+    """Load a metric named ``package.module:object`` / ``file.py:object`` and check it."""
+    import sys
+
+    from .metrics import build_metrics
+
+    for p in reversed([str(Path(p).resolve()) for p in search_path]):
+        if p not in sys.path:
+            sys.path.insert(0, p)
+    try:
+        metric = build_metrics([target], {target: dict(options)} if options else None)[0]
+    except InputError as e:
+        return [Finding(False, "load", str(e))]
+    return check_metric(metric)
+
+
+def check_metric(metric: Any) -> list[Finding]:
+    """Findings for a Metric: declared columns, identity score, determinism, declared range and
+    NaN handling on a speech-like probe (clean, and with white noise at 10 dB SNR)."""
+    from .errors import MetricUnavailable
+
+    cols = list(metric.columns)
+    out = [Finding(True, "declared columns", ", ".join(
+        f"{c.name} [{c.unit}] {_direction(c.higher_is_better)} {list(c.valid_range)}" for c in cols))]
+    sr = metric.sample_rate or METRIC_PROBE_RATE
+    ref = probe_signal(sr, METRIC_PROBE_SECONDS).astype(np.float64)
+    noise = np.random.default_rng(0).standard_normal(ref.size)
+    noisy = ref + noise * np.sqrt(np.mean(ref ** 2) / 10 ** (METRIC_PROBE_SNR_DB / 10))
+
+    def scored(est: np.ndarray, what: str) -> dict[str, float] | Finding:
+        try:
+            return metric.score(metric.prepare(ref, sr), est, sr)
+        except MetricUnavailable as e:
+            return Finding(False, what, f"unavailable on a {METRIC_PROBE_SECONDS:g} s speech-like "
+                                        f"probe at {sr} Hz: {e}")
+        except Exception as e:
+            return Finding(False, what, f"raised {type(e).__name__}: {e}")
+
+    same, degraded = scored(ref, "identity score"), scored(noisy, "score of a noisy copy")
+    bad = [v for v in (same, degraded) if isinstance(v, Finding)]
+    if bad:
+        return out + bad
+    worse = [c.name for c in cols if c.higher_is_better is not None and
+             np.isfinite(same[c.name]) and np.isfinite(degraded[c.name]) and
+             (same[c.name] < degraded[c.name]) == c.higher_is_better and
+             same[c.name] != degraded[c.name]]
+    out.append(Finding(not worse, "identity score",
+                       f"the output identical to the reference scores worse than a copy with "
+                       f"{METRIC_PROBE_SNR_DB:g} dB noise on {worse}: direction or sign wrong?"
+                       if worse else ", ".join(f"{k} {v:.4g}" for k, v in same.items())))
+    again = scored(noisy, "determinism")
+    equal = not isinstance(again, Finding) and all(
+        np.array_equal(again[k], degraded[k], equal_nan=True) for k in degraded)
+    out.append(Finding(equal, "determinism", "" if equal else
+                       "two scorings of the same input differ; seed or remove randomness"))
+    outside = [f"{c.name}={v[c.name]:.4g}" for v in (same, degraded) for c in cols
+               if np.isfinite(v[c.name]) and not c.valid_range[0] <= v[c.name] <= c.valid_range[1]]
+    out.append(Finding(not outside, "declared range",
+                       f"values outside the declared range: {', '.join(outside)}" if outside else ""))
+    nan_est = noisy.copy()
+    nan_est[ref.size // 2] = np.nan
+    try:
+        values = metric.score(metric.prepare(ref, sr), nan_est, sr)
+        finite = [k for k, v in values.items() if np.isfinite(v)]
+        out.append(Finding(not finite, "NaN handling", f"an estimate with a NaN sample gave "
+                           f"finite values for {finite}; raise MetricUnavailable instead"
+                           if finite else "NaN out for NaN in"))
+    except MetricUnavailable as e:
+        out.append(Finding(True, "NaN handling", f"unavailable: {e}"))
+    except Exception as e:
+        out.append(Finding(False, "NaN handling", f"an estimate with a NaN sample raised "
+                           f"{type(e).__name__}: {e}; raise MetricUnavailable instead"))
+    return out
+
+
+def _direction(higher: bool | None) -> str:
+    return {True: "higher is better", False: "lower is better", None: "diagnostic"}[higher]

@@ -49,9 +49,11 @@ def cmd_demo(a: argparse.Namespace) -> int:
 
 
 def cmd_check(a: argparse.Namespace) -> int:
-    from .check import check_target
+    from .check import check_metric_target, check_target
 
     target, options, search = a.target, dict(a.option or []), list(a.search_path or [])
+    if a.metric:
+        return _report_findings(a.metric, check_metric_target(a.metric, options, search or ["."]))
     if a.config:
         from .config import load_config
 
@@ -61,7 +63,10 @@ def cmd_check(a: argparse.Namespace) -> int:
         search = [*cfg.search_path, *search]
     if not target:
         raise InputError("name a TARGET ('package.module:object') or give --config", field="TARGET")
-    findings = check_target(target, options, search or ["."])
+    return _report_findings(target, check_target(target, options, search or ["."]))
+
+
+def _report_findings(target: str, findings: list) -> int:
     for f in findings:
         print(f)
     bad = [f for f in findings if not f.ok]
@@ -144,6 +149,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="keyword option for the class or factory (VALUE in TOML syntax); repeatable")
     c.add_argument("--search-path", action="append", metavar="DIR", help="extra import folder")
     c.add_argument("--config", type=Path, help="take target and options from this run config")
+    c.add_argument("--metric", metavar="TARGET", help="check a metric object instead "
+                   "('package.module:object' or file.py:object): identity score, determinism, "
+                   "declared range, NaN handling")
     c.set_defaults(fn=cmd_check)
 
     s = sub.add_parser("schedules", help="list schedule kinds, or print one as β, ᾱ and noise levels",

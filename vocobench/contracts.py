@@ -19,11 +19,7 @@ Outputs may be any array-like, torch tensors included (converted without importi
 """
 from __future__ import annotations
 
-import hashlib
-import importlib
-import importlib.util
 import inspect
-import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Mapping, Protocol, Sequence, runtime_checkable
@@ -32,6 +28,7 @@ import numpy as np
 
 from .arrays import to_numpy
 from .errors import InputError
+from .targets import resolve  # noqa: F401  (re-exported: plug-ins and metrics share it)
 from .frontend import MelFrontEnd
 from .params import is_integer
 from .samplers import available_samplers, make_plan, run_plan
@@ -58,44 +55,6 @@ class Denoiser(Protocol):
 
 
 # -- loading -------------------------------------------------------------------------------
-def resolve(target: str, search_path: Sequence[str | Path] = ()) -> Any:
-    """Import ``package.module:object`` (or ``path/to/file.py:object``; ``object`` may be dotted)."""
-    if not isinstance(target, str) or ":" not in target:
-        raise InputError("target must look like 'package.module:object'", field="vocoder.target",
-                         value=target)
-    mod_name, _, attr = target.rpartition(":")
-    if not mod_name or not attr:
-        raise InputError("target must look like 'package.module:object'", field="vocoder.target",
-                         value=target)
-    for p in reversed([str(Path(p).resolve()) for p in search_path]):
-        if p not in sys.path:
-            sys.path.insert(0, p)
-    try:
-        if mod_name.endswith(".py"):
-            path = Path(mod_name)
-            if not path.is_file():
-                raise InputError("file not found", field="vocoder.target", value=mod_name)
-            tag = hashlib.sha256(str(path.resolve()).encode()).hexdigest()[:8]
-            spec = importlib.util.spec_from_file_location(f"vocobench_user_{path.stem}_{tag}", path)
-            module = importlib.util.module_from_spec(spec)  # type: ignore[arg-type]
-            sys.modules[spec.name] = module  # type: ignore[union-attr]
-            spec.loader.exec_module(module)  # type: ignore[union-attr]
-        else:
-            module = importlib.import_module(mod_name)
-    except InputError:
-        raise
-    except Exception as e:  # the user's import failed: report its cause
-        raise InputError(f"cannot import '{mod_name}': {type(e).__name__}: {e}",
-                         field="vocoder.target", value=target) from None
-    obj: Any = module
-    for part in attr.split("."):
-        if not hasattr(obj, part):
-            raise InputError(f"'{mod_name}' has no attribute '{attr}'", field="vocoder.target",
-                             value=target)
-        obj = getattr(obj, part)
-    return obj
-
-
 def instantiate(obj: Any, options: Mapping[str, Any], target: str = "") -> Any:
     """Class or factory → instance, with ``options`` as keyword arguments; instances pass through."""
     is_instance = not inspect.isclass(obj) and (hasattr(obj, "predict_noise") or

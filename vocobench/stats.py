@@ -29,11 +29,12 @@ import pandas as pd
 from scipy import stats as sst
 
 from .errors import InputError
-from .keys import CONFIG_KEYS, ConfigKey, directed_columns, direction
-from .keys import labels as config_labels
+# CONFIG_KEYS, config_labels and ok_mask are re-exported (imported from here before keys.py)
+from .keys import CONFIG_KEYS, ConfigKey, directed_columns, direction  # noqa: F401
+from .keys import labels as config_labels  # noqa: F401
 from .params import Choice, Integer, Param, Real, Table, with_defaults
 from .runtables import (configurations, default_reference, failure_counts, latency_summary,
-                        nfe_map, ok_mask, require_item_fields, utterance_means)
+                        nfe_map, ok_mask, require_item_fields, utterance_means)  # noqa: F401
 
 Config = ConfigKey                      # the name used before keys.py
 DEFAULT_CONFIDENCE = 0.95               # common practice, no source

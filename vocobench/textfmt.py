@@ -9,7 +9,6 @@
 """
 from __future__ import annotations
 
-import html
 import math
 from typing import Any, Sequence
 

@@ -28,8 +28,8 @@ test in ``tests/test_metrics_*.py`` that checks it against an outside reference.
 """
 from __future__ import annotations
 
-from .base import (DEFAULT_METRICS, REGISTRY, Column, Metric, Prepared, available_metrics,
-                   build_metrics)
+from .base import DEFAULT_METRICS, REGISTRY, Column, Metric, Prepared, available_metrics
+from .build import build_metrics
 from .length import DEFAULT_TOLERANCE_HOPS, LENGTH_PARAMS, LengthPolicy
 
 __all__ = ["DEFAULT_METRICS", "DEFAULT_TOLERANCE_HOPS", "LENGTH_PARAMS", "REGISTRY", "Column",

@@ -8,15 +8,16 @@ returns one float per column. Both validate their inputs here, so metric modules
 from __future__ import annotations
 
 import importlib
+import importlib.util
 import math
 from abc import ABC, abstractmethod
 from dataclasses import asdict, dataclass, field
 from importlib import metadata
-from typing import Any, ClassVar, Mapping, Sequence
+from typing import Any, ClassVar, Mapping
 
 import numpy as np
 
-from ..errors import InputError, MetricUnavailable
+from ..errors import MetricUnavailable
 from ..params import Custom, Table, is_integer
 
 INF = math.inf
@@ -34,9 +35,11 @@ REGISTRY: dict[str, str] = {
     "logmel_l1": "spectral_distance:LogMelL1",
     "f0": "pitch_error:PitchError",
     "signal": "signal_checks:SignalChecks",
+    "dnsmos": "nonintrusive_mos:Dnsmos",
 }
 
 DEFAULT_METRICS: tuple[str, ...] = ("mcd", "pesq_wb", "stoi")
+METRICS_EXTRA = "quality"      # the optional extra (pyproject.toml) of metrics that need one
 
 # Config keys named in InputError messages (the [metrics] table of the run config).
 NAMES_FIELD = "metrics.use"
@@ -96,6 +99,12 @@ class Metric(ABC):
     options_spec: ClassVar[Table] = Table("", [], entry="option")
     needs_finite_estimate: ClassVar[bool] = True
     libraries: ClassVar[tuple[str, ...]] = ()     # distributions whose version goes in variant()
+    requires: ClassVar[tuple[str, ...]] = ()      # importable modules of an optional extra
+    # True: the metric aligns the signals itself (e.g. DTW) and scores an estimate of any length
+    # against the whole reference (no cut of the reference under the "trim" policy)
+    any_length: ClassVar[bool] = False
+    # where a user's metric came from (target, code fingerprint, version); recorded by variant()
+    provenance: ClassVar[Mapping[str, Any]] = {}
 
     def __init__(self, options: Mapping[str, Any] | None = None, *, source: str | None = None):
         self.options: dict[str, Any] = self.options_spec.parse(
@@ -121,7 +130,16 @@ class Metric(ABC):
         if self.libraries:
             out["libraries"] = {lib: _version(lib) for lib in self.libraries}
         out.update(_jsonable(self._variant(sample_rate)))
+        note = self.caution(sample_rate) if sample_rate else None
+        if note:
+            out["caution"] = note
+        if self.provenance:
+            out["provenance"] = _jsonable(dict(self.provenance))
         return out
+
+    def caution(self, sample_rate: int) -> str | None:
+        """A warning about using this metric on audio at ``sample_rate`` (None if none)."""
+        return None
 
     def _variant(self, sample_rate: int | None) -> dict[str, Any]:
         return {}
@@ -156,18 +174,21 @@ class Metric(ABC):
         """Score ``estimate`` against the prepared reference. Raises MetricUnavailable.
 
         An estimate shorter than the prepared reference (the "trim" length policy) is scored
-        against the reference cut to its length, prepared once per length and kept on ``state``.
+        against the reference cut to its length, prepared once per length and kept on ``state``
+        — except by metrics with ``any_length`` (they align the signals themselves and take an
+        estimate of any length against the whole reference).
         """
         est = _as_signal(estimate, "estimate")
         sr = _as_rate(sr)
         if not isinstance(state, Prepared) or state.metric != self.name:
             raise ValueError(f"state was not prepared by metric '{self.name}'")
-        if sr == state.sample_rate and est.size < state.length and state.reference is not None:
+        if sr == state.sample_rate and est.size < state.length and state.reference is not None \
+                and not self.any_length:
             cut = state.trimmed.get(est.size)
             if cut is None:
                 cut = state.trimmed[est.size] = self.prepare(state.reference[: est.size], sr)
             state = cut
-        if sr != state.sample_rate or est.size != state.length:
+        if sr != state.sample_rate or (est.size != state.length and not self.any_length):
             raise ValueError(f"estimate ({est.size} samples at {sr} Hz) does not match the "
                              f"prepared reference ({state.length} at {state.sample_rate} Hz); "
                              "apply the length policy first")
@@ -196,40 +217,9 @@ def metric_class(name: str) -> type[Metric]:
     return getattr(importlib.import_module(f"{__package__}.{module}"), cls)
 
 
-def build_metrics(names: Sequence[str] = DEFAULT_METRICS,
-                  options: Mapping[str, Mapping[str, Any]] | None = None,
-                  source: str | None = None) -> list[Metric]:
-    """Instantiate metrics by registry name with per-metric ``options``.
-
-    Raises InputError for an unknown name, an unknown option or a bad option value.
-    Options for known metrics that are not selected are checked too (typos surface early).
-    """
-    valid = ", ".join(REGISTRY)
-    if isinstance(names, str) or not isinstance(names, Sequence):
-        raise InputError("must be a list of metric names", source=source, field=NAMES_FIELD,
-                         value=names)
-    if not names:
-        raise InputError(f"no metrics selected; valid names: {valid}", source=source,
-                         field=NAMES_FIELD)
-    options = dict(options or {})
-    for keys, where in ((names, NAMES_FIELD), (options, OPTIONS_FIELD)):
-        for key in keys:
-            if key not in REGISTRY:
-                raise InputError(f"unknown metric '{key}'; valid names: {valid}", source=source,
-                                 field=where, value=key)
-    seen = set()
-    for n in names:
-        if n in seen:
-            raise InputError(f"metric '{n}' is listed twice", source=source, field=NAMES_FIELD,
-                             value=n)
-        seen.add(n)
-    for key, opts in options.items():
-        if not isinstance(opts, Mapping):
-            raise InputError("metric options must be a table of name = value", source=source,
-                             field=f"{OPTIONS_FIELD}.{key}", value=opts)
-        if key not in seen:
-            metric_class(key)(opts, source=source)
-    return [metric_class(n)(options.get(n), source=source) for n in names]
+def missing_requirements(name: str) -> list[str]:
+    """Modules of the optional extra that registered metric ``name`` needs and cannot import."""
+    return [m for m in metric_class(name).requires if importlib.util.find_spec(m) is None]
 
 
 def available_metrics() -> list[dict[str, Any]]:

@@ -16,7 +16,17 @@ over frames, c0 (log gain) excluded. They differ in the cepstra:
 Frames whose energy is more than ``silence_db`` below the reference's loudest frame are
 excluded. ``alignment = "none"`` compares frame i with frame i (vocoder outputs are time-aligned
 with their mel input); ``"dtw"`` aligns the non-silent frames of both signals with dynamic time
-warping (librosa.sequence.dtw, Euclidean cepstral cost) and averages along the path.
+warping (librosa.sequence.dtw, Euclidean cepstral cost) and averages along the path; it accepts an
+estimate of any length and always uses the whole reference (an estimate shorter than the
+reference no longer cuts it: same value as the "pad" length policy).
+
+Periodogram floor of ``mcd`` (option ``floor``): ``"absolute"`` (default) adds SPTK's fixed 1e-10
+to every bin, so values match SPTK's ``mcep -e 1e-10``; but where an output has no energy (a
+band-limited vocoder) the floor is what gets compared, and it sits relatively higher when the
+pair is quieter, so MCD falls with level (29.2 / 21.8 / 14.8 dB at 0 / −20 / −40 dB peak on the
+band-limited pair of tests/test_metrics_mcd.py). ``"relative"`` multiplies the floor by the
+reference's squared peak: values no longer depend on the common level of the pair and equal
+the absolute ones for a reference peaking at full scale.
 """
 from __future__ import annotations
 
@@ -59,13 +69,23 @@ class _CepstralDistance(Metric):
     window: str = "blackman"
     periodic_window: bool = False      # symmetric Blackman, as SPTK's `window` command
 
+    def __init__(self, options=None, *, source=None):
+        super().__init__(options, source=source)
+        # DTW aligns the two frame sequences itself: an estimate of any length is scored against
+        # the whole reference (Metric.score then never cuts the reference to the estimate).
+        self.any_length = self.options["alignment"] == "dtw"
+
     def _frames(self, sr: int) -> tuple[int, int]:
         return (nearest_pow2(self.options["frame_ms"] * sr / 1000.0),
                 ms_to_samples(self.options["hop_ms"], sr))
 
-    def _features(self, frames: np.ndarray, sr: int) -> np.ndarray:
-        """(F, L) raw frames -> (F, D) cepstra without c0."""
+    def _features(self, frames: np.ndarray, sr: int, level: float = 1.0) -> np.ndarray:
+        """(F, L) raw frames -> (F, D) cepstra without c0; ``level``: see :meth:`_level`."""
         raise NotImplementedError
+
+    def _level(self, reference: np.ndarray) -> float:
+        """Power scale of the analysis floor for this utterance (1.0: absolute floor)."""
+        return 1.0
 
     def _windowed(self, frames: np.ndarray) -> np.ndarray:
         from scipy.signal import get_window
@@ -83,8 +103,9 @@ class _CepstralDistance(Metric):
         sil = self.options["silence_db"]
         threshold = -INF if sil is None else top + sil
         keep = energy >= threshold
-        return {"keep": keep, "threshold_db": threshold,
-                "cep": self._features(frames[keep], sr)}
+        level = self._level(reference)
+        return {"keep": keep, "threshold_db": threshold, "level": level,
+                "cep": self._features(frames[keep], sr, level)}
 
     def _score(self, data: dict[str, Any], estimate: np.ndarray, sr: int) -> dict[str, float]:
         length, hop = self._frames(sr)
@@ -92,12 +113,13 @@ class _CepstralDistance(Metric):
         ref = data["cep"]
         prefix = self.name
         if self.options["alignment"] == "none":
-            per_frame = mcd_from_cepstra(ref, self._features(frames[data["keep"]], sr))
+            per_frame = mcd_from_cepstra(ref, self._features(frames[data["keep"]], sr,
+                                                             data["level"]))
             return {prefix: float(per_frame.mean()), f"{prefix}_frames": float(per_frame.size)}
         keep = frame_energy_db(frames) >= data["threshold_db"]
         if not keep.any():
             raise MetricUnavailable("estimate is silent: no frame above the silence threshold")
-        est = self._features(frames[keep], sr)
+        est = self._features(frames[keep], sr, data["level"])
         from scipy.spatial.distance import cdist
         import librosa
 
@@ -136,6 +158,9 @@ class MelCepstralDistortion(_CepstralDistance):
         Param("order", Integer(1, 60), 24, "mel-cepstral order M (c1..cM compared)"),
         Param("alpha", Real(0.0, 0.99), None,
               "all-pass constant; unset: mel-scale fit for the rate"),
+        Param("floor", Choice(("absolute", "relative")), "absolute",
+              "periodogram floor: 'absolute' (SPTK's fixed 1e-10) or 'relative' (1e-10 x the "
+              "reference's squared peak: level-independent)"),
         *_COMMON_OPTIONS,
     ], entry="option")
 
@@ -162,15 +187,24 @@ class MelCepstralDistortion(_CepstralDistance):
                 tol=NEWTON_TOL, max_iter=NEWTON_MAX_ITER)
         return self._analyzers[sr]
 
-    def _features(self, frames: np.ndarray, sr: int) -> np.ndarray:
+    def _level(self, reference: np.ndarray) -> float:
+        if self.options["floor"] == "absolute":
+            return 1.0
+        return float(np.max(np.abs(reference))) ** 2
+
+    def _features(self, frames: np.ndarray, sr: int, level: float = 1.0) -> np.ndarray:
         if frames.shape[0] == 0:
             return np.zeros((0, self.options["order"]))
-        return self._analyzer(sr).analyze(self._windowed(frames))[:, 1:]
+        return self._analyzer(sr).analyze(self._windowed(frames),
+                                          floor=PERIODOGRAM_FLOOR * level)[:, 1:]
 
     def _variant(self, sample_rate: int | None) -> dict[str, Any]:
         out = super()._variant(sample_rate)
         out.update(cepstrum="mel-cepstral analysis, gamma=0 (Tokuda et al. 1994), Newton solve",
-                   periodogram_floor=PERIODOGRAM_FLOOR, newton_tol=NEWTON_TOL,
+                   periodogram_floor=PERIODOGRAM_FLOOR,
+                   periodogram_floor_rule={"absolute": "added as is (SPTK mcep -e)",
+                                           "relative": "times the reference's squared peak"}
+                   [self.options["floor"]], newton_tol=NEWTON_TOL,
                    newton_max_iter=NEWTON_MAX_ITER,
                    alpha_rule="fixed" if self.options["alpha"] is not None else
                    "least-squares fit to the mel scale on a 0.001 grid (as SPTK's alpha helper)")
@@ -207,7 +241,7 @@ class MfccDistortion(_CepstralDistance):
                        "MFCC-based cepstral distance (different quantity from mcd)"),
                 self._frames_column())
 
-    def _features(self, frames: np.ndarray, sr: int) -> np.ndarray:
+    def _features(self, frames: np.ndarray, sr: int, level: float = 1.0) -> np.ndarray:
         n_mfcc = self.options["n_mfcc"]
         if frames.shape[0] == 0:
             return np.zeros((0, n_mfcc - 1))

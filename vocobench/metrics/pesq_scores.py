@@ -4,6 +4,10 @@ ITU-T P.862 (2001) "Perceptual evaluation of speech quality"; wide-band extensio
 (2007); narrow-band MOS-LQO mapping ITU-T P.862.1 (2003). Signals are resampled to 16 kHz (WB) or
 8 kHz (NB) with a high-quality resampler (libsoxr "VHQ" by default, recorded in ``variant()``).
 
+Input below the PESQ rate (e.g. 8 kHz audio scored by ``pesq_wb``) is upsampled: the missing band
+is scored as a band limitation, so such values are not comparable with full-rate ones; the metric
+says so in ``variant()["caution"]`` (hence in the manifest) and warns once per process.
+
 Caution: PESQ was designed and validated for telephone-band codecs, packet loss and network
 degradations, not for neural vocoders; its scores on vocoded speech are a rough indicator, and the
 MOS-LQO mappings saturate at 4.644 (WB) / 4.549 (NB) for an undistorted signal.
@@ -11,6 +15,7 @@ MOS-LQO mappings saturate at 4.644 (WB) / 4.549 (NB) for an undistorted signal.
 from __future__ import annotations
 
 import math
+import warnings
 from typing import Any, ClassVar
 
 import numpy as np
@@ -53,9 +58,20 @@ class _Pesq(Metric):
         return (Column(self.name, "MOS-LQO", True, (round(lo, 3), round(hi, 3)),
                        f"PESQ {self.standard} MOS-LQO at {self.rate // 1000} kHz"),)
 
+    def caution(self, sample_rate: int) -> str | None:
+        if sample_rate >= self.rate:
+            return None
+        return (f"{self.name}: audio at {sample_rate} Hz is upsampled to {self.rate} Hz; nothing "
+                f"above {sample_rate / 2:g} Hz, so {self.standard} scores it as band-limited "
+                "speech (lower than the same speech at the full rate); compare only runs at the "
+                "same rate")
+
     def _prepare(self, reference: np.ndarray, sr: int) -> np.ndarray:
         if not np.any(reference):
             raise MetricUnavailable("PESQ: reference is digitally silent")
+        note = self.caution(sr)
+        if note:
+            warnings.warn(note, stacklevel=2)
         return resample(reference, sr, self.rate, self.options["resampler"])
 
     def _score(self, data: np.ndarray, estimate: np.ndarray, sr: int) -> dict[str, float]:

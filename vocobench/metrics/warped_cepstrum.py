@@ -107,9 +107,9 @@ class MelCepstralAnalyzer:
         proj[0] *= 0.5
         self._proj = proj                                                        # warped projection
 
-    def periodogram(self, windowed: np.ndarray) -> np.ndarray:
+    def periodogram(self, windowed: np.ndarray, floor: float | None = None) -> np.ndarray:
         spec = np.fft.rfft(windowed, n=self.n_fft, axis=-1)
-        return spec.real ** 2 + spec.imag ** 2 + self.floor
+        return spec.real ** 2 + spec.imag ** 2 + (self.floor if floor is None else floor)
 
     def _objective(self, c: np.ndarray, power: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(I/|H|² per bin, E(c) up to a constant) for cepstra ``c`` (F, M+1)."""
@@ -125,9 +125,10 @@ class MelCepstralAnalyzer:
         hankel = sliding_window_view(q[:, : 2 * m - 1], m, axis=1)
         return 2.0 * (toeplitz + hankel)
 
-    def analyze(self, windowed: np.ndarray) -> np.ndarray:
-        """Mel-cepstra of ``windowed`` frames, shape (F, L) -> (F, M + 1)."""
-        power = self.periodogram(np.atleast_2d(np.asarray(windowed, dtype=np.float64)))
+    def analyze(self, windowed: np.ndarray, floor: float | None = None) -> np.ndarray:
+        """Mel-cepstra of ``windowed`` frames, shape (F, L) -> (F, M + 1); ``floor`` overrides
+        the periodogram floor given at construction."""
+        power = self.periodogram(np.atleast_2d(np.asarray(windowed, dtype=np.float64)), floor)
         m1 = self.order + 1
         # Start: warped re-expansion of log|X| (as SPTK's freqt of the FFT cepstrum), with the gain
         # moved so that (1/2π)∫ I/|H|² dω = 1, which the optimum satisfies (∂E/∂c̃0 = 0).

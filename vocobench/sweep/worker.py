@@ -150,6 +150,9 @@ class Worker:
             try:
                 vals = m.score(states[m.name], est, sr)
                 rec["metrics"].update({c.name: float(vals[c.name]) for c in m.columns})
+                note = m.caution(sr)            # e.g. a wide-band score of narrow-band audio
+                if note:
+                    rec["notes"].update({c.name: note for c in m.columns})
             except MetricUnavailable as e:
                 for c in m.columns:
                     rec["metrics"][c.name] = float("nan")
