@@ -62,7 +62,8 @@ def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--repeats", type=int, default=7, help="timed calls per command (default 7)")
     a = p.parse_args(argv)
-    bare = [_time_once([]) for _ in range(2)]            # warm the file cache first
+    for _ in range(2):                                    # warm the file cache first
+        _time_once([])
     t0 = time.perf_counter()
     subprocess.run([sys.executable, "-c", "pass"], check=True)
     floor = time.perf_counter() - t0
@@ -70,7 +71,6 @@ def main(argv: list[str] | None = None) -> int:
           f"median of {a.repeats}; target <= {TARGET_S} s")
     print(f"{'command':<34} {'median s':>9} {'best s':>8} {'cpu s':>7}  heavy imports")
     missed = []
-    del bare
     for words in COMMANDS:
         if words and not _known(words):
             continue
