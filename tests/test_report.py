@@ -206,7 +206,7 @@ def test_cli_flags_override_and_bad_input_exits_2(run_dir, capsys):
                             "--margin", "pesq_wb=0.1", "--resamples", "300", "--no-plots", "--no-page"))
     assert rc == 0
     text = out.getvalue()
-    assert "Quality against latency" in text and "linear/ddim/32 (reference)" in text
+    assert "Quality against latency" in text and "ref reference: linear/ddim/32" in text
     assert "Cheapest configuration no worse than the reference: linear/ddim/16" in text
     assert cli.main(_args(str(run_dir), "--margin", "mcd_db:0.5", "--quiet")) == 2
     assert "--margin" in capsys.readouterr().err

@@ -28,11 +28,13 @@ def _option(text: str) -> tuple[str, Any]:
 
 def cmd_run(a: argparse.Namespace) -> int:
     from .config import load_config
+    from .report.terminal import choice_from_args, showing
     from .sweep import run
 
     cfg = load_config(a.config)
-    out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,
-              scheduler=a.scheduler)
+    with showing(choice_from_args(a, strict=False)):
+        out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,
+                  scheduler=a.scheduler)
     print(f"run directory: {out}")
     return 0
 
@@ -157,14 +159,21 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("schedules", help="list schedule kinds, or print one as β, ᾱ and noise levels",
                        description="Without KIND: list kinds and examples. With KIND: print the "
                                    "schedule for --steps as a table.")
-    s.add_argument("kind", metavar="KIND", nargs="?")
-    s.add_argument("--steps", type=int, default=6)
-    s.add_argument("--training-steps", type=int, default=1000,
-                   help="length of the linear training schedule used by kind 'stride'")
-    s.add_argument("-o", "--option", action="append", type=_option, metavar="KEY=VALUE")
+    s.add_argument("kind", metavar="KIND", nargs="?",
+                   help="schedule kind to print, e.g. cosine or stride (omit to list the kinds)")
+    s.add_argument("--steps", type=int, default=6, metavar="N",
+                   help="number of steps of the printed schedule (default: %(default)s)")
+    s.add_argument("--training-steps", type=int, default=1000, metavar="N",
+                   help="length of the linear training schedule used by kind 'stride' "
+                        "(default: %(default)s)")
+    s.add_argument("-o", "--option", action="append", type=_option, metavar="KEY=VALUE",
+                   help="an option of the kind, as in [[sweep.schedule]] (VALUE in TOML "
+                        "syntax); repeatable")
     s.set_defaults(fn=cmd_schedules)
 
-    m = sub.add_parser("metrics", help="list the available metrics, units and directions")
+    m = sub.add_parser("metrics", help="list the available metrics, units and directions",
+                       description="List every metric with its columns, their units and whether "
+                                   "higher or lower is better; * marks the default set.")
     m.set_defaults(fn=cmd_metrics)
 
     for name, mod in _plugins():
@@ -173,29 +182,46 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _run_flags(r: argparse.ArgumentParser, out_default: str | None = None) -> None:
+    from .report.terminal import add_view_flags
+
     r.add_argument("--out", type=Path, metavar="DIR",
                    help=f"run directory (default: {out_default or 'from the config, else reports/run'})")
     r.add_argument("--workers", type=int, metavar="N", help="parallel synthesis-and-scoring processes")
     r.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
     r.add_argument("--no-report", action="store_true", help="skip tables, plots and listening page")
     r.add_argument("-q", "--quiet", action="store_true", help="no progress output")
+    add_view_flags(r)
+
+
+# Subcommands of the report stage: name → (module, one-line help, description).
+_REPORT_COMMANDS = {
+    "report": (".report.cli", "re-render tables, plots, recommendation and page",
+               "Regenerate every report of RUN_DIR from stored results."),
+    "show": (".report.browse", "look through a run's results: per configuration, per utterance, "
+                               "worst utterances",
+             "Print a stored run's results without re-rendering or writing anything. Example, "
+             "the utterances worst on STOI among the 4-step configurations: "
+             "vocobench show RUN_DIR --worst stoi --steps 4"),
+}
 
 
 def _plugins() -> list[tuple[str, Callable[[Any], None]]]:
     """Subcommands contributed by later stages (report, gate), if present."""
+    import importlib
+
     out = []
-    try:
-        from .report.cli import add_arguments, main as report_main
+    for name, (module, short, long) in _REPORT_COMMANDS.items():
+        try:
+            mod = importlib.import_module(module, __package__)
+        except ImportError:
+            continue
 
-        def add_report(sub: Any) -> None:
-            rp = sub.add_parser("report", help="re-render tables, plots, recommendation and page",
-                                description="Regenerate every report of RUN_DIR from stored results.")
-            add_arguments(rp)
-            rp.set_defaults(fn=report_main)
+        def add(sub: Any, name: str = name, mod: Any = mod, short: str = short, long: str = long) -> None:
+            p = sub.add_parser(name, help=short, description=long)
+            mod.add_arguments(p)
+            p.set_defaults(fn=mod.main)
 
-        out.append(("report", add_report))
-    except ImportError:
-        pass
+        out.append((name, add))
     try:
         from .gate.cli import register
 

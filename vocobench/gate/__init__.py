@@ -9,12 +9,24 @@
 """
 from __future__ import annotations
 
-from .baseline import BASELINE_FORMAT, freeze, load_baseline, load_side
-from .compare import Comparison, ConfigResult, MetricResult, compare_runs, parse_match
-from .latency import LatencyResult
-from .outputs import junit, markdown, to_json, verdict_line
-from .policy import DEFAULT_ALLOW, Allowance, Policy, load_policy
-from .pytest_helper import assert_no_regression
+import importlib
+from typing import Any
+
+# name → submodule; loaded on first use, so that `vocobench compare --help` stays quick
+_EXPORTS = {
+    "BASELINE_FORMAT": "baseline", "freeze": "baseline", "load_baseline": "baseline",
+    "load_side": "baseline", "Comparison": "compare", "ConfigResult": "compare",
+    "MetricResult": "compare", "compare_runs": "compare", "parse_match": "compare",
+    "LatencyResult": "latency", "junit": "outputs", "markdown": "outputs", "to_json": "outputs",
+    "verdict_line": "outputs", "DEFAULT_ALLOW": "policy", "Allowance": "policy",
+    "Policy": "policy", "load_policy": "policy", "assert_no_regression": "pytest_helper",
+}
+
+
+def __getattr__(name: str) -> Any:
+    if name in _EXPORTS:
+        return getattr(importlib.import_module(f".{_EXPORTS[name]}", __name__), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def ab_compare(*args, **kwargs):  # type: ignore[no-untyped-def]

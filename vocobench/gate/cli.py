@@ -7,13 +7,16 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from .policy import Policy, load_policy, parse_allow_option
+if TYPE_CHECKING:
+    from .policy import Policy
 
 
-def build_policy(a: argparse.Namespace) -> Policy:
+def build_policy(a: argparse.Namespace) -> "Policy":
     """Default policy < ``--policy FILE`` < individual options."""
+    from .policy import Policy, load_policy, parse_allow_option   # here: keeps --help quick
+
     pol = load_policy(a.policy) if a.policy else Policy()
     allow = dict(parse_allow_option(t) for t in (a.allow or []))
     changes: dict[str, Any] = {"allow": allow or None, "max_rtf_increase_pct": a.max_rtf_increase,
@@ -91,6 +94,7 @@ def register(sub: Any) -> None:
     f = bs.add_parser("freeze", help="write RUN_DIR's results (no audio) and manifest to FILE",
                       description="Write a compact, versioned baseline of RUN_DIR; FILE ending in "
                                   ".gz is gzip-compressed. compare accepts it on either side.")
-    f.add_argument("run_dir", metavar="RUN_DIR", type=Path)
-    f.add_argument("--out", type=Path, metavar="FILE", required=True)
+    f.add_argument("run_dir", metavar="RUN_DIR", type=Path, help="the run directory to freeze")
+    f.add_argument("--out", type=Path, metavar="FILE", required=True,
+                   help="baseline file to write; a name ending in .gz is gzip-compressed")
     f.set_defaults(fn=cmd_freeze)

@@ -6,7 +6,11 @@ import sys
 from typing import Any
 
 from ..errors import InputError
-from ..stats import METHODS
+from .terminal import add_view_flags, check_choice, choice_from_args, showing
+
+# The bootstrap methods (vocobench.stats.METHODS), written out so that building the parser does
+# not load the statistics stack; tests/test_cli_help.py checks that the two lists agree.
+METHOD_NAMES = ("BCa", "percentile", "basic")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -15,7 +19,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--reference", metavar="SCHEDULE/SAMPLER/STEPS",
                         help="configuration compared against (default: the one with most steps)")
     parser.add_argument("--metrics", metavar="COL[,COL...]",
-                        help="metric columns that must stay within their margins")
+                        help="metric columns that must stay within their margins; also the "
+                             "metrics of the terminal table")
     parser.add_argument("--margin", action="append", default=[], metavar="COL=VALUE",
                         help="non-inferiority margin for a column, in its unit (repeatable)")
     parser.add_argument("--margin-rel", type=float, metavar="FRACTION",
@@ -28,11 +33,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--confidence", type=float, metavar="LEVEL", help="interval level, e.g. 0.95")
     parser.add_argument("--resamples", type=int, metavar="N", help="bootstrap resamples")
     parser.add_argument("--seed", type=int, metavar="N", help="bootstrap seed")
-    parser.add_argument("--method", choices=METHODS, help="bootstrap interval")
+    parser.add_argument("--method", choices=METHOD_NAMES, help="bootstrap interval method")
     parser.add_argument("--worst", type=int, metavar="N", help="worst utterances listed per configuration")
     parser.add_argument("--no-plots", action="store_true", help="skip the plots")
     parser.add_argument("--no-page", action="store_true", help="skip the listening page")
     parser.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
+    add_view_flags(parser, metrics=False)
 
 
 def _margins(pairs: list[str]) -> dict[str, float]:
@@ -81,12 +87,16 @@ def build_options(args: argparse.Namespace, run: Any = None):
 
 def main(args: argparse.Namespace) -> int:
     """Run the report; returns 0, or 2 after printing an input error."""
+    from ..keys import directed_columns
     from ..store import load_run
     from .render import render_report
 
     try:
         run = load_run(args.run_dir)
-        render_report(run, build_options(args, run), echo=not args.quiet)
+        choice = choice_from_args(args, strict=True)
+        check_choice(choice, directed_columns(run.manifest.get("columns") or {}))
+        with showing(choice):
+            render_report(run, build_options(args, run), echo=not args.quiet)
     except InputError as e:
         print(f"vocobench report: error: {e}", file=sys.stderr)
         return 2

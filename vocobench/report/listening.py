@@ -28,6 +28,8 @@ SPEC_RANGE_DB = 80.0             # dynamic range shown (common practice, no sour
 SPEC_TOP_DB = -6.0               # a full-scale sine reads −6 dB with scipy's "spectrum" scaling
 SPEC_MAX_COLUMNS = 480           # time columns kept (averaged down), keeps PNGs small
 SPEC_ROWS = 128
+SPEC_SIZE_IN = (4.4, 1.9)        # spectrogram image with its axes, inches at SPEC_DPI
+SPEC_DPI = 100
 
 WARNING = ("Careful with the volume: outputs at few steps can contain loud noise. Every clip "
            f"here is a peak-normalised copy (peak {PEAK_DBFS:g} dBFS, 16-bit WAV); start with the "
@@ -39,7 +41,7 @@ body{font-family:system-ui,sans-serif;margin:1.5em;max-width:1200px;color:#222}
 table{border-collapse:collapse;margin:.5em 0 1.5em}
 td,th{border:1px solid #ccc;padding:.3em .5em;vertical-align:middle;text-align:left}
 th{background:#f3f3f3}
-img.spec{height:96px;width:360px;image-rendering:auto}
+img.spec{height:190px;width:440px;image-rendering:auto}
 .scores{font-size:.85em;white-space:nowrap}
 .missing{color:#a00}
 code{font-size:.9em}
@@ -98,19 +100,36 @@ def write_clip(src: Path, dst: Path) -> tuple[np.ndarray, int, float]:
     return y, int(sr), gain
 
 
-def write_spectrogram(y: np.ndarray, sr: int, dst: Path) -> None:
-    """Small log-magnitude spectrogram PNG (no axes; low frequencies at the bottom)."""
-    from matplotlib.image import imsave
+def spectrogram_figure(y: np.ndarray, sr: int):
+    """Log-magnitude spectrogram with axes: time in s, frequency in kHz (0 to sr/2, low
+    frequencies at the bottom), the same dB range for every clip. Returns a matplotlib Figure."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
     from scipy.signal import stft
 
     n = SPEC_NPERSEG
+    duration = y.size / sr
     if y.size < n:
         y = np.pad(y, (0, n - y.size))
     _, _, z = stft(y, fs=sr, nperseg=n, noverlap=3 * n // 4, window="hann")
     db = 20.0 * np.log10(np.abs(z) + 1e-12)
     db = _pool(_pool(db, SPEC_ROWS, axis=0), SPEC_MAX_COLUMNS, axis=1)
+    fig = Figure(figsize=SPEC_SIZE_IN, dpi=SPEC_DPI, layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.subplots()
+    ax.imshow(db, cmap="magma", vmin=SPEC_TOP_DB - SPEC_RANGE_DB, vmax=SPEC_TOP_DB,
+              origin="lower", aspect="auto", interpolation="nearest",
+              extent=(0.0, max(duration, n / sr), 0.0, sr / 2000.0))
+    ax.set_xlabel("time (s)", fontsize=7, labelpad=1)
+    ax.set_ylabel("frequency (kHz)", fontsize=7, labelpad=1)
+    ax.tick_params(labelsize=6, length=2, pad=1)
+    return fig
+
+
+def write_spectrogram(y: np.ndarray, sr: int, dst: Path) -> None:
+    """:func:`spectrogram_figure` as a PNG."""
     dst.parent.mkdir(parents=True, exist_ok=True)
-    imsave(str(dst), db, cmap="magma", vmin=SPEC_TOP_DB - SPEC_RANGE_DB, vmax=SPEC_TOP_DB, origin="lower")
+    spectrogram_figure(y, sr).savefig(str(dst), dpi=SPEC_DPI)
 
 
 def _pool(a: np.ndarray, size: int, axis: int) -> np.ndarray:

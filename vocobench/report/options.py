@@ -3,9 +3,9 @@
 Example (every key optional)::
 
     [decide]
-    reference = "cosine/ddim/200"        # schedule/sampler/steps
-    margins = {pesq_wb = 0.1, mcd_db = 0.5}
-    rtf_budget = false                   # no RTF ceiling
+    reference = "cosine/ddim/200"         # schedule/sampler/steps
+    margins = {pesq_wb = 0.1, mcd = 0.5}  # by metric column (`vocobench metrics` lists them)
+    rtf_budget = false                    # no RTF ceiling
     listen = ["cosine/ddim/6"]
 
 Keys, types, ranges and defaults are declared once in :data:`DECIDE` (rendered in DEVELOPERS.md,

@@ -4,27 +4,42 @@ Figures are built with :class:`matplotlib.figure.Figure` and the Agg canvas dire
 so no global backend is touched. Per metric column:
 
 * ``<col>_vs_rtf``: mean with CI error bars against median RTF, one panel per schedule, one
-  marker per sampler, the Pareto front ringed;
+  marker per sampler, the Pareto front ringed, the recommended configurations starred and the
+  RTF budget drawn as a dashed vertical line. The RTF axis is logarithmic when the values span
+  more than a decade, linear otherwise (a log axis inside one decade has no labelled ticks);
 * ``<col>_vs_steps``: mean with CI against steps, one line per (schedule, sampler);
-* ``<col>_spread``: per-utterance (seed-averaged) values per configuration, box and points.
+* ``<col>_spread``: per-utterance (seed-averaged) values per configuration, box and points; each
+  utterance keeps its colour and its place within the box in every configuration, so it can be
+  followed across them.
 """
 from __future__ import annotations
 
+import math
 import re
+import textwrap
 from pathlib import Path
+from typing import TYPE_CHECKING, Sequence
 
 import matplotlib
 import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, NullFormatter
 
 from ..stats import RunStatistics
 
+if TYPE_CHECKING:
+    from .decide import Recommendation
+
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*", "h", "<", ">")
 DPI = 110
 FORMATS = ("png", "svg")
+TITLE_CHARS_PER_INCH = 13        # about right for 10 pt DejaVu Sans (measured, our choice)
+LOG_DECADES = 1.0                # an RTF axis spanning more than this many decades is logarithmic
+UTT_LEGEND_MAX = 20              # spread plots name the utterances up to this many
+BUDGET_LINE = {"color": "0.35", "linestyle": "--", "linewidth": 1}
 
 
 def safe_name(text: str) -> str:
@@ -42,10 +57,38 @@ def _save(fig: Figure, out_dir: Path, stem: str) -> list[Path]:
     return paths
 
 
-def _plain_log(axis) -> None:
-    """Log-scale tick labels as plain numbers (no mathtext: faster, and easier to read)."""
+def _plain_log(axis, label_minor_below: float = 0.0) -> None:
+    """Log-scale tick labels as plain numbers (no mathtext: faster, and easier to read). When
+    the data span at most ``label_minor_below`` decades, the 2× and 5× ticks are labelled too."""
     axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-    axis.set_minor_formatter(NullFormatter())
+    if label_minor_below <= 0:
+        axis.set_minor_formatter(NullFormatter())
+        return
+
+    def minor(v: float, _: int) -> str:
+        lo, hi = sorted(axis.get_view_interval())
+        if v <= 0 or lo <= 0 or math.log10(hi / lo) > label_minor_below:
+            return ""
+        mantissa = round(v / 10 ** math.floor(math.log10(v) + 1e-9), 6)
+        return f"{v:g}" if mantissa in (2.0, 5.0) else ""
+
+    axis.set_minor_formatter(FuncFormatter(minor))
+
+
+def _rtf_axis(ax, values: np.ndarray) -> str:
+    """Scale and tick labels of an RTF axis; returns its label."""
+    v = values[np.isfinite(values) & (values > 0)]
+    if v.size and v.max() / v.min() > 10 ** LOG_DECADES:
+        ax.set_xscale("log")
+        _plain_log(ax.xaxis, label_minor_below=2.5)
+        return "median RTF (log scale)"
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
+    return "median RTF"
+
+
+def _suptitle(fig: Figure, text: str, width_in: float) -> None:
+    """Figure title wrapped to the figure's width, so that it is never cut off."""
+    fig.suptitle(textwrap.fill(text, max(20, int(width_in * TITLE_CHARS_PER_INCH))), fontsize=10)
 
 
 def _axis_label(st: RunStatistics, col: str) -> str:
@@ -59,12 +102,21 @@ def _yerr(sub: pd.DataFrame, col: str) -> np.ndarray:
     return np.nan_to_num(np.vstack([m - lo, hi - m]), nan=0.0)
 
 
-def metric_vs_rtf(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Path) -> list[Path]:
+def rtf_figure(st: RunStatistics, table: pd.DataFrame, col: str,
+               decision: "Recommendation | None" = None) -> Figure:
+    """The ``<col>_vs_rtf`` figure (see the module docstring)."""
     schedules = list(dict.fromkeys(table["schedule"]))
     samplers = list(dict.fromkeys(table["sampler"]))
-    fig = Figure(figsize=(4.2 * len(schedules), 3.6), layout="constrained")
+    width = max(4.2 * len(schedules), 6.0)
+    fig = Figure(figsize=(width, 3.8), layout="constrained")
     axes = fig.subplots(1, len(schedules), sharex=True, sharey=True, squeeze=False)[0]
     conf = f"{100 * st.settings.confidence:g} %"
+    budget = getattr(decision, "rtf_budget", None)
+    recommended = set(decision.recommended) if decision is not None else set()
+    xs = table["rtf_median"].to_numpy(dtype=float)
+    seen = xs[np.isfinite(xs) & (xs > 0)]
+    # the budget line is drawn where it does not squeeze the data into a corner; else named only
+    on_axis = budget is not None and (not seen.size or seen.min() / 2 <= budget <= 2 * seen.max())
     for ax, sched in zip(axes, schedules):
         for k, samp in enumerate(samplers):
             sub = table[(table["schedule"] == sched) & (table["sampler"] == samp)].sort_values("steps")
@@ -79,28 +131,41 @@ def metric_vs_rtf(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Pat
                 ax.annotate(note, (r["rtf_median"], r[f"{col}_mean"]), fontsize=7,
                             xytext=(3, 3), textcoords="offset points")
             front = sub[sub[f"{col}_front"].astype(bool)]
-            ax.scatter(front["rtf_median"], front[f"{col}_mean"], s=160, facecolors="none",
-                       edgecolors="black", linewidths=1.2, zorder=5,
-                       label="Pareto front" if k == 0 else None)
-        rtf = table["rtf_median"].astype(float)
-        if (rtf > 0).any():
-            ax.set_xscale("log")
-            _plain_log(ax.xaxis)
+            if len(front):
+                ax.scatter(front["rtf_median"], front[f"{col}_mean"], s=160, facecolors="none",
+                           edgecolors="black", linewidths=1.2, zorder=5, label="Pareto front")
+            rec = sub[sub["config"].isin(recommended)]
+            if len(rec):
+                ax.scatter(rec["rtf_median"], rec[f"{col}_mean"], s=260, marker="*", color="gold",
+                           edgecolors="black", linewidths=0.8, zorder=6, label="recommended")
+        if on_axis:
+            ax.axvline(float(budget), label=f"RTF budget {float(budget):g}", **BUDGET_LINE)
         ax.set_title(f"schedule {sched}", fontsize=9)
-        ax.set_xlabel("median RTF (log scale)")
         ax.grid(True, alpha=0.3)
+    xlabel = _rtf_axis(axes[0], np.append(xs, float(budget)) if on_axis else xs)
+    for ax in axes:
+        ax.set_xlabel(xlabel)
     axes[0].set_ylabel(_axis_label(st, col))
-    handles, labels = axes[0].get_legend_handles_labels()
-    for ax in axes[1:]:
-        h, lab = ax.get_legend_handles_labels()
-        for hh, ll in zip(h, lab):
+    handles, labels = [], []
+    for ax in axes:
+        for hh, ll in zip(*ax.get_legend_handles_labels()):
             if ll not in labels:
                 handles.append(hh)
                 labels.append(ll)
+    if budget is not None and not on_axis:
+        side = "right" if budget > seen.max() else "left"
+        handles.append(Line2D([], [], **BUDGET_LINE))
+        labels.append(f"RTF budget {float(budget):g} (off the axis, to the {side})")
     if handles:
-        axes[-1].legend(handles, labels, fontsize=7, loc="best")
-    fig.suptitle(f"{col} against latency (error bars: {conf} CI; numbers: steps)", fontsize=10)
-    return _save(fig, out_dir, f"{safe_name(col)}_vs_rtf")
+        fig.legend(handles, labels, fontsize=7, loc="outside lower center",
+                   ncols=min(len(handles), 3 * len(axes)))
+    _suptitle(fig, f"{col} against latency (error bars: {conf} CI; numbers: steps)", width)
+    return fig
+
+
+def metric_vs_rtf(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Path,
+                  decision: "Recommendation | None" = None) -> list[Path]:
+    return _save(rtf_figure(st, table, col, decision), out_dir, f"{safe_name(col)}_vs_rtf")
 
 
 def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Path) -> list[Path]:
@@ -123,35 +188,60 @@ def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: P
     return _save(fig, out_dir, f"{safe_name(col)}_vs_steps")
 
 
+def utterance_colours(utts: Sequence[str]) -> dict[str, tuple]:
+    """One colour per utterance, the same in every configuration: the qualitative tab10 or tab20
+    map while it has enough colours, else evenly spaced on turbo."""
+    name = "tab10" if len(utts) <= 10 else "tab20" if len(utts) <= 20 else "turbo"
+    cmap = matplotlib.colormaps[name]
+    n = max(len(utts) - 1, 1)
+    return {u: cmap(i if name != "turbo" else i / n) for i, u in enumerate(utts)}
+
+
 def spread(st: RunStatistics, col: str, out_dir: Path) -> list[Path]:
     t = st.per_utterance[col]
     labels = list(t.columns)
+    t = t.set_axis([str(u) for u in t.index]).sort_index()
+    utts = list(t.index)
+    colours = utterance_colours(utts)
     data = [t[c].dropna().to_numpy(dtype=float) for c in labels]
-    fig = Figure(figsize=(max(4.0, 0.45 * len(labels) + 1.5), 4.2), layout="constrained")
+    named = len(utts) <= UTT_LEGEND_MAX
+    fig = Figure(figsize=(max(4.0, 0.45 * len(labels) + 1.5) + (1.3 if named else 0), 4.2),
+                 layout="constrained")
     ax = fig.subplots()
     pos = np.arange(1, len(labels) + 1)
     keep = [i for i, d in enumerate(data) if d.size]
     if keep:
-        ax.boxplot([data[i] for i in keep], positions=pos[keep], widths=0.6, showfliers=False)
-    rng = np.random.default_rng(0)            # jitter only; fixed for reproducible images
-    for i in keep:
-        ax.scatter(pos[i] + rng.uniform(-0.15, 0.15, data[i].size), data[i], s=8, alpha=0.6, zorder=3)
+        ax.boxplot([data[i] for i in keep], positions=pos[keep], widths=0.6, showfliers=False,
+                   medianprops={"color": "black"})
+    # each utterance at the same offset inside every box, in its own colour
+    offsets = np.linspace(-0.2, 0.2, len(utts)) if len(utts) > 1 else np.zeros(1)
+    for j, u in enumerate(utts):
+        y = t.iloc[j].to_numpy(dtype=float)
+        ok = np.isfinite(y)
+        if ok.any():
+            ax.scatter(pos[ok] + offsets[j], y[ok], s=12, color=colours[u], alpha=0.85, zorder=3,
+                       edgecolors="none", label=u if named else None)
     ax.set_xticks(pos)
     ax.set_xticklabels(labels, rotation=60, ha="right", fontsize=7)
     ax.set_ylabel(_axis_label(st, col))
     ax.grid(True, axis="y", alpha=0.3)
-    ax.set_title(f"{col} per utterance (seeds averaged)", fontsize=10)
+    if named and utts:
+        ax.legend(title="utterance", fontsize=6, title_fontsize=7, loc="upper left",
+                  bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
+    ax.set_title(f"{col} per utterance (seeds averaged; one colour per utterance)", fontsize=10)
     return _save(fig, out_dir, f"{safe_name(col)}_spread")
 
 
-def write_plots(st: RunStatistics, table: pd.DataFrame, out_dir: Path) -> list[Path]:
-    """All plots of the module docstring; returns the files written."""
+def write_plots(st: RunStatistics, table: pd.DataFrame, out_dir: Path,
+                decision: "Recommendation | None" = None) -> list[Path]:
+    """All plots of the module docstring; returns the files written. ``decision`` supplies the
+    recommended configurations and the RTF budget drawn on the RTF plots."""
     out_dir.mkdir(parents=True, exist_ok=True)
     for old in list(out_dir.glob("*.png")) + list(out_dir.glob("*.svg")):
         old.unlink()
     paths: list[Path] = []
     for col in st.columns:
-        paths += metric_vs_rtf(st, table, col, out_dir)
+        paths += metric_vs_rtf(st, table, col, out_dir, decision)
         paths += metric_vs_steps(st, table, col, out_dir)
         paths += spread(st, col, out_dir)
     return paths

@@ -22,7 +22,7 @@ from ..errors import InputError
 from ..keys import ConfigKey, is_directed
 from ..stats import BootstrapSettings, RunStatistics, summarise
 from ..store import Run, load_run, write_atomic
-from ..textfmt import latex_table, md_cell, md_table, text_table
+from ..textfmt import latex_table, md_cell, md_table
 from .decide import CAUTION, Recommendation, recommend
 from .listening import default_choice, fewest_steps, write_listening_page
 from .options import ReportOptions
@@ -132,7 +132,7 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     if opts.plots and st.columns:
         from .plots import write_plots
 
-        plots = write_plots(st, table, rep / "plots")
+        plots = write_plots(st, table, rep / "plots", decision)
     page_files = []
     if opts.page:
         chosen = [ConfigKey.parse(x).label for x in opts.listen] if opts.listen else \
@@ -146,9 +146,11 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     result = ReportResult(paths=paths, table=table, recommendation=text, decision=decision,
                           stats=st, plots=plots, page_files=page_files)
     if echo:
+        from .terminal import echo_table, echo_text
+
         print(f"{TITLE} — {run_dir}")
-        print(text_table(header, rows))
-        print(text)
+        echo_table(table, st, decision)
+        echo_text(text)
         print("Written:")
         for p in [*paths.values(), *( [rep / "plots"] if plots else [])]:
             print(f"  {p}")
