@@ -183,7 +183,8 @@ def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: P
     ax.set_xlabel("steps (log scale)")
     ax.set_ylabel(_axis_label(st, col))
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="best")
+    if ax.get_legend_handles_labels()[0]:       # nothing to label when no configuration scored
+        ax.legend(fontsize=7, loc="best")
     ax.set_title(f"{col} against steps ({100 * st.settings.confidence:g} % CI)", fontsize=10)
     return _save(fig, out_dir, f"{safe_name(col)}_vs_steps")
 
