@@ -1,8 +1,15 @@
 """Progress on stderr: one self-overwriting line on a terminal, a line per tenth otherwise."""
 from __future__ import annotations
 
+import shutil
 import sys
+import textwrap
 import time
+
+
+def width() -> int:
+    """Columns of the terminal (``COLUMNS`` first; 100 when unknown)."""
+    return max(40, shutil.get_terminal_size((100, 24)).columns)
 
 
 class Progress:
@@ -21,17 +28,21 @@ class Progress:
         eta = el / self.done * (self.total - self.done)
         line = (f"{self.label} [{self.done:>5}/{self.total}] {100 * self.done / max(self.total, 1):5.1f}% "
                 f"elapsed {_hms(el)} eta {_hms(eta)} {what[:40]}")
+        w = width() - 1
+        line = line[:w]
         if self.tty:
-            sys.stderr.write("\r" + line.ljust(100) + ("\n" if self.done == self.total else ""))
+            sys.stderr.write("\r" + line.ljust(w) + ("\n" if self.done == self.total else ""))
         elif self.done == self.total or self.done % max(1, self.total // 10) == 0:
             sys.stderr.write(line + "\n")
         sys.stderr.flush()
 
 
 def say(enabled: bool, msg: str) -> None:
-    """Print ``msg`` on stderr if ``enabled``."""
+    """Print ``msg`` on stderr if ``enabled``, wrapped to the terminal's width."""
     if enabled:
-        print(msg, file=sys.stderr)
+        for line in msg.splitlines() or [""]:
+            print(textwrap.fill(line, width(), subsequent_indent="  ", break_long_words=False,
+                                break_on_hyphens=False) if line else "", file=sys.stderr)
 
 
 def _hms(s: float) -> str:
