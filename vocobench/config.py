@@ -90,6 +90,7 @@ CONFIG = Table("", [
     Param("output", OUTPUT, doc="results"),
     Param("run", RUN, doc="execution"),
     Param("decide", MapOf(), {}, "options of the decision stage (see [decide])"),
+    Param("search", MapOf(), {}, "options of `vocobench search` (see [search])"),
 ], title="Run config file (`vocobench run CONFIG`)", entry="section")
 SECTIONS = tuple(CONFIG)
 
@@ -127,6 +128,7 @@ class RunConfig:
     item_timeout_s: float | None = None
     scheduler: str | None = None
     decide: dict[str, Any] = CONFIG.field("decide")
+    search: dict[str, Any] = CONFIG.field("search")
     source: str = "<config>"
     raw: dict[str, Any] = field(default_factory=dict)
 
@@ -165,4 +167,4 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
                      output_dir=None if out["dir"] is None else base / out["dir"],
                      save_audio=out["save_audio"], workers=rn["workers"],
                      item_timeout_s=rn["item_timeout_s"], scheduler=rn["scheduler"],
-                     decide=d["decide"], source=source, raw=dict(data))
+                     decide=d["decide"], search=d["search"], source=source, raw=dict(data))
