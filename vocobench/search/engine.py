@@ -3,8 +3,9 @@
 Every candidate becomes a ``kind = "explicit"`` schedule named after its β list; :func:`prepare`
 of the sweep builds its jobs, so the cache keys are exactly those a later ``run`` of the same
 pasted schedule computes, and every synthesis is journalled in ``items.jsonl`` the moment it
-finishes (a killed search resumes without repeating one). Budgets count the syntheses a search
-asks for, cached or not, so a resumed search retraces the same path.
+finishes (a killed search resumes without repeating one). Budgets count the distinct syntheses
+a search asks for, cached or not (one reused by a later halving rung counts once), so a resumed
+search retraces the same path.
 """
 from __future__ import annotations
 
@@ -41,12 +42,17 @@ class Evaluator:
         self.max_syntheses, self.max_seconds = max_syntheses, max_seconds
         self.workers, self.scheduler, self.progress = workers, scheduler, progress
         self.t0 = time.perf_counter()
-        self.spent = 0              # syntheses asked for (cached or not)
+        self.asked: set[str] = set()     # distinct syntheses asked for (cached or not)
         self.computed = 0           # syntheses actually run in this session
         self.scores: dict[tuple[str, int], float] = {}
         self.history: dict[str, dict[str, Any]] = {}     # name → candidate, n, means, value
         self.trace: list[dict[str, Any]] = []
         self.bar = Progress(max_syntheses or 0, progress, label="search")
+
+    @property
+    def spent(self) -> int:
+        """Distinct syntheses this target has asked for: its budget use, cached or not."""
+        return len(self.asked)
 
     @property
     def n_search(self) -> int:
@@ -55,7 +61,7 @@ class Evaluator:
     def plan(self, total: int) -> None:
         """Tell the progress line how many syntheses the strategy expects (when no budget is set)."""
         if not self.max_syntheses:
-            self.bar.total = max(self.bar.total, total)
+            self.bar.total = max(self.bar.total, self.spent + total)
 
     # -- running jobs ---------------------------------------------------------------------------
     def records(self, specs: Sequence[ScheduleSpec], steps: int, utts: Sequence[Utterance],
@@ -70,13 +76,13 @@ class Evaluator:
         todo = [j for j in jobs if j.key not in self.done]
         bar = self.bar if budget else Progress(len(todo), self.progress, label="reference/held-out")
         if budget:
-            for _ in range(len(jobs) - len(todo)):
+            for _ in range(sum(j.key in self.done and j.key not in self.asked for j in jobs)):
                 bar.step("cached")
         if todo:
             run_jobs(setup, todo, _Tee(self.journal, self.done), bar, self.workers, self.scheduler)
             self.computed += len(todo)
         if budget:
-            self.spent += len(jobs)
+            self.asked.update(j.key for j in jobs)
         out: dict[str, list[dict[str, Any]]] = {s.name: [] for s in specs}
         for j in jobs:
             if j.key in self.done:
@@ -90,7 +96,14 @@ class Evaluator:
             return []
         if self.max_syntheses is None:
             return jobs
-        return jobs[:max(0, self.max_syntheses - self.spent)]
+        room, out = self.max_syntheses - self.spent, []
+        for j in jobs:                      # a synthesis asked for before costs nothing again
+            if j.key not in self.asked:
+                if room <= 0:
+                    break
+                room -= 1
+            out.append(j)
+        return out
 
     # -- scoring --------------------------------------------------------------------------------
     def score(self, cands: Sequence[Candidate], n: int | None = None) -> list[float]:

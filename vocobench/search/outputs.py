@@ -39,9 +39,9 @@ def summary_md(s: Mapping[str, Any]) -> str:
         b = t["budget"]
         lines += [f"## {t['steps']} steps, sampler {t['sampler']}", "",
                   f"Search size: {b['candidates']} candidates; budget spent: {b['syntheses_asked']} "
-                  f"syntheses ({b["syntheses_computed"]} computed in this session, the rest from the "
-                  f"cache; the session also ran the reference and held-out syntheses) in {b['seconds']:.0f} s" + (f"; stopped: {t['stopped']}" if t["stopped"] else "")
-                  + ".", ""]
+                  f"syntheses asked for, cached or not; {b['syntheses_computed']} syntheses computed "
+                  f"in this session (reference and held-out included), {b['seconds']:.0f} s"
+                  + (f"; stopped: {t['stopped']}" if t["stopped"] else "") + ".", ""]
         if not t["finalists"]:
             lines += ["No candidate was scored on the whole search split.", ""]
             continue

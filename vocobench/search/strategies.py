@@ -70,7 +70,7 @@ def initial_set(space: Space, o: Any, rng: np.random.Generator) -> list[Candidat
 def halving(space: Space, ev: Any, o: Any, rng: np.random.Generator) -> None:
     cands = initial_set(space, o, rng)
     rungs = halving_rungs(len(cands), ev.n_search, o.min_utterances, o.eta)
-    ev.plan(sum(n * r for n, r in rungs) * len(ev.seeds))
+    ev.plan(sum(n * (r - q) for (n, r), (_, q) in zip(rungs, [(0, 0)] + rungs)) * len(ev.seeds))
     for k, (_, r) in enumerate(rungs):
         vals = ev.score(cands, r)
         if k + 1 < len(rungs):
@@ -90,7 +90,7 @@ def local(space: Space, ev: Any, o: Any, rng: np.random.Generator) -> None:
         best, best_v = starts[i], vals[i]
     step = np.full(len(space.dims), LOCAL_START_STEP)
     floor = np.array([d.resolution for d in space.dims])
-    ev.plan(ev.spent + o.local_rounds * 2 * len(space.dims) * ev.n_search * len(ev.seeds))
+    ev.plan(o.local_rounds * 2 * len(space.dims) * ev.n_search * len(ev.seeds))
     for _ in range(o.local_rounds):
         u = np.array(best.u)
         moves = []
