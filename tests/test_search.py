@@ -198,3 +198,20 @@ def test_killed_search_resumes_without_repeating_and_run_reuses_it(tmp_path):
     n = len(_keys(items))
     run(load_config(cfg), out, progress=False, report=False)
     assert len(_keys(items)) == n + 4               # 4 utterances × 2 seeds, 4 from the search
+
+
+@pytest.mark.parametrize("strategy", ["random", "local", "tpe", "cmaes"])
+def test_budget_stops_every_strategy(tmp_path, strategy):
+    """A synthesis budget is a ceiling: the search stops at it and says so (our contract)."""
+    if strategy in ("tpe", "cmaes"):
+        pytest.importorskip("optuna", reason="strategies tpe/cmaes need the 'search' extra (optuna)")
+    if strategy == "cmaes":
+        pytest.importorskip("cmaes", reason="strategy cmaes needs the 'search' extra (cmaes)")
+    cfg = _resume_config(tmp_path)
+    cfg.write_text(cfg.read_text().replace('strategy = "grid"', f'strategy = "{strategy}"\n'
+                                           'max_syntheses = 7\ncandidates = 6'))
+    out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False)
+    t = json.loads((out / "search" / "search.json").read_text())["targets"][0]
+    assert t["budget"]["syntheses_asked"] == 7
+    assert t["stopped"] == "budget spent"
+    assert len(t["finalists"]) == 1                  # 2 search utterances: 3 candidates scored in full

@@ -7,6 +7,7 @@ figures; its held-out run uses the fresh seeds, as the finalists' do.
 """
 from __future__ import annotations
 
+import dataclasses
 import sys
 from pathlib import Path
 from typing import Any
@@ -37,7 +38,8 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
 
     opts = SearchOptions.from_mapping(getattr(cfg, "search", None), cfg.source)
     decide = ReportOptions.from_mapping(cfg.decide, source=cfg.source)
-    base = prepare(cfg, out_dir)                       # validates plug-in, test set and metrics
+    probe = ScheduleSpec("probe", "explicit", {"betas": [0.5]})   # the [sweep] grid is not searched
+    base = prepare(dataclasses.replace(cfg, schedules=[probe], steps=[1]), out_dir)
     out, plugin, ts = base.out_dir, base.plugin, base.testset
     cols = [c for m in base.metrics for c in m.columns]
     named = set(directed_columns(cols))

@@ -115,8 +115,10 @@ def _optuna(kind: str) -> Callable[[Space, Any, Any, np.random.Generator], None]
     def run(space: Space, ev: Any, o: Any, rng: np.random.Generator) -> None:
         try:
             import optuna
-        except ImportError:
-            raise InputError("strategy needs optuna: pip install 'vocobench[search]'",
+            if kind == "cmaes":
+                import cmaes  # noqa: F401  (optuna's CMA-ES sampler runs on it)
+        except ImportError as e:
+            raise InputError(f"strategy needs {e.name}: pip install 'vocobench[search]'",
                              field="search.strategy", value=kind) from None
         optuna.logging.set_verbosity(optuna.logging.WARNING)
         sampler = (optuna.samplers.TPESampler(seed=o.seed) if kind == "tpe"
