@@ -215,3 +215,16 @@ def test_budget_stops_every_strategy(tmp_path, strategy):
     assert t["budget"]["syntheses_asked"] == 7
     assert t["stopped"] == "budget spent"
     assert len(t["finalists"]) == 1                  # 2 search utterances: 3 candidates scored in full
+
+
+def test_nfe_budget_gives_each_sampler_its_most_steps(tmp_path):
+    """Heun spends 2N − 1 evaluations (Karras et al. 2022, Alg. 1): a budget of 5 buys 3 steps;
+    DDIM spends N: 5 steps. The winner's β list has that many entries."""
+    cfg = _resume_config(tmp_path)
+    cfg.write_text(cfg.read_text().replace('steps = [3]\nstrategy = "grid"', 'nfe = [5]\n'
+                                           'strategy = "random"\ncandidates = 2').replace(
+        'samplers = ["ddim"]', 'samplers = ["heun", "ddim"]'))
+    out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False)
+    ts = json.loads((out / "search" / "search.json").read_text())["targets"]
+    got = {t["sampler"]: (t["steps"], t["nfe"], len(t["finalists"][0]["betas"])) for t in ts}
+    assert got == {"heun": (3, 5, 3), "ddim": (5, 5, 5)}

@@ -13,10 +13,10 @@ from .holdout import verdict
 from .objective import Objective, pareto_front, utterance_means
 from .options import SEARCH, SearchOptions
 from .runner import search
-from .spaces import SPACE, Candidate, Space, betas_from_alpha_bars, log_snr, make_space
+from .spaces import SPACE, Candidate, Space, make_space
 from .split import Split, split_utterances
 from .strategies import STRATEGIES, halving_rungs
 
 __all__ = ["SEARCH", "SPACE", "STRATEGIES", "Candidate", "Objective", "SearchOptions", "Space",
-           "Split", "betas_from_alpha_bars", "halving_rungs", "log_snr", "make_space",
+           "Split", "halving_rungs", "make_space",
            "pareto_front", "search", "split_utterances", "utterance_means", "verdict"]

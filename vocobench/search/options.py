@@ -22,6 +22,8 @@ FINALISTS = 3                   # our choice: candidates confirmed on the held-o
 _NAMES = ListOf(String(nonempty=True))
 SEARCH = Table("search", [
     Param("steps", ListOf(Integer(low=1), distinct=True), [6], "step counts to find schedules for"),
+    Param("nfe", ListOf(Integer(low=1), distinct=True), None,
+          "network-evaluation budgets instead of steps: per sampler, the most steps within each"),
     Param("samplers", _NAMES, None, "samplers to search with; unset: [sweep] samplers, else all"),
     Param("spaces", ListOf(MapOf(what="a table")), [{"kind": "geometric"}],
           "[[search.spaces]] tables: kind (" + ", ".join(SPACE_KINDS) + ") and its options"),
@@ -66,6 +68,7 @@ class SearchOptions:
     """Validated ``[search]`` table (see :data:`SEARCH`)."""
 
     steps: list[int]
+    nfe: list[int] | None
     samplers: list[str] | None
     spaces: list[dict[str, Any]]
     strategy: str
@@ -93,6 +96,9 @@ class SearchOptions:
     @classmethod
     def from_mapping(cls, table: Mapping[str, Any] | None, source: str = "[search]") -> "SearchOptions":
         opts = cls(source=source, **SEARCH.parse(table or {}, source))
+        if opts.nfe is not None and "steps" in (table or {}):
+            raise InputError("give steps or nfe, not both", source=source, field="search.nfe",
+                             value=opts.nfe)
         fresh = opts.fresh_seeds()
         if set(fresh) & set(opts.seeds):
             raise InputError("held-out seeds must differ from the search seeds", source=source,

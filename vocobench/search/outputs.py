@@ -15,7 +15,7 @@ import numpy as np
 from ..schedules import NoiseSchedule, cosine, subsequence
 from ..store import dumps, write_atomic
 from ..textfmt import fmt, fmt_p
-from .spaces import log_snr
+from ..samplers import log_snr
 
 
 def toml_block(row: Mapping[str, Any], steps: int, sampler: str) -> str:
@@ -37,7 +37,8 @@ def summary_md(s: Mapping[str, Any]) -> str:
              f"Reference: {s['reference']['spec']['name']} ({s['reference']['steps']} steps).", ""]
     for t in s["targets"]:
         b = t["budget"]
-        lines += [f"## {t['steps']} steps, sampler {t['sampler']}", "",
+        within = f" (NFE {t['nfe']}, budget {t['nfe_budget']})" if t.get("nfe_budget") else f" (NFE {t['nfe']})"
+        lines += [f"## {t['steps']} steps, sampler {t['sampler']}{within}", "",
                   f"Search size: {b['candidates']} candidates; budget spent: {b['syntheses_asked']} "
                   f"syntheses asked for, cached or not; {b['syntheses_computed']} syntheses computed "
                   f"in this session (reference and held-out included), {b['seconds']:.0f} s"
@@ -142,4 +143,4 @@ def plot_schedules(s: Mapping[str, Any], training: NoiseSchedule | None, path: P
 
 def _line(ax: Any, sch: NoiseSchedule, label: str, style: str) -> None:
     n = len(sch)
-    ax.plot(np.arange(1, n + 1) / n, log_snr(sch), style, label=label, markersize=3)
+    ax.plot(np.arange(1, n + 1) / n, 2 * log_snr(sch.alpha_bars), style, label=label, markersize=3)

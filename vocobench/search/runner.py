@@ -17,7 +17,8 @@ import numpy as np
 from ..config import RunConfig
 from ..errors import InputError
 from ..keys import directed_columns
-from ..schedules import ScheduleSpec, make_spec
+from ..samplers import steps_within
+from ..schedules import ScheduleSpec, geometric, make_spec
 from ..stats import BootstrapSettings
 from ..store import ITEMS, Journal, RunLock, read_jsonl
 from ..sweep import prepare
@@ -63,8 +64,8 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
         journal = Journal(out / ITEMS)
         done = {r["key"]: r for r in read_jsonl(out / ITEMS) if "key" in r}
         before = len(done)
-        for steps in opts.steps:
-            for sampler in samplers:
+        for sampler in samplers:
+            for steps, budget in _step_counts(opts, plugin, sampler):
                 say(progress, f"search: {steps} steps, sampler {sampler}, strategy {opts.strategy}, "
                               f"{len(split.search)} search / {len(split.held_out)} held-out utterances")
                 obj = Objective(opts.objective, primary, metrics, higher, dict(opts.margins))
@@ -78,7 +79,8 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
                 obj.reference = {c: float(utterance_means(ref_search, c).mean()) for c in obj.columns}
                 stopped = _run_spaces(opts, ev, steps, plugin.training_schedule, cfg.source)
                 targets.append(_confirm(opts, ev, obj, ref_spec, ref_steps, split, decide,
-                                        settings, stopped, steps, sampler))
+                                        settings, stopped, steps, sampler)
+                               | {"nfe": plugin.nfe(geometric(steps), sampler), "nfe_budget": budget})
         journal.close()
     summary = {"options": opts.describe(), "split": split.describe(), "primary": primary,
                "metrics": metrics, "reference": {"spec": {"name": ref_spec.name,
@@ -95,6 +97,17 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
 def say(enabled: bool, msg: str) -> None:
     if enabled:
         print(msg, file=sys.stderr)
+
+
+def _step_counts(opts: SearchOptions, plugin: Any, sampler: str) -> list[tuple[int, int | None]]:
+    """(steps, NFE budget) targets: the given step counts, or per budget the most steps of
+    ``sampler`` whose network evaluations fit in it (as the sweep's ``nfe`` does)."""
+    if not opts.nfe:
+        return [(n, None) for n in opts.steps]
+    out: dict[int, int] = {}
+    for b in opts.nfe:
+        out.setdefault(steps_within(lambda k: plugin.nfe(geometric(k), sampler), b), b)
+    return [(n, b) for n, b in out.items()]
 
 
 def _reference(opts: SearchOptions, plugin: Any, source: str) -> tuple[ScheduleSpec, int]:

@@ -25,7 +25,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..params import Boolean, Choice, Custom, Integer, ListOf, Param, Real, Table
-from ..schedules import NoiseSchedule, geometric, linear
+from ..schedules import NoiseSchedule, from_alpha_bars, geometric, karras, linear
 
 # Default ranges: our choices, wide enough to hold the usual published endpoints
 # (β_1 = 1e-4, β_N = 0.02..0.5: Ho et al. 2020, Kong et al. 2021; ρ = 7: Karras et al. 2022).
@@ -151,28 +151,18 @@ class Space:
                 raise ValueError("β_1 must be below β_N")
             return (geometric if self.kind == "geometric" else linear)(n, v[0], v[1]).betas
         if self.kind == "karras":
-            lam_max, lam_min, rho = v
-            s_min, s_max = math.exp(-lam_max / 2), math.exp(-lam_min / 2)
-            i = np.arange(n) / max(n - 1, 1)
-            sig = (s_max ** (1 / rho) + i * (s_min ** (1 / rho) - s_max ** (1 / rho))) ** rho
-            return betas_from_alpha_bars(1.0 / (1.0 + sig[::-1] ** 2))
+            lam_max, lam_min, rho = v            # λ = ln(ᾱ/(1−ᾱ)) = −2·ln σ
+            return karras(n, rho=rho, sigma_min=math.exp(-lam_max / 2),
+                          sigma_max=math.exp(-lam_min / 2)).betas
         if self.kind == "subsequence":
             tau = [int(x) for x in v]
             if len(set(tau)) != n:
                 raise ValueError("training steps repeat")
             ab = self.training.alpha_bars[np.sort(tau) - 1]          # type: ignore[union-attr]
-            return betas_from_alpha_bars(ab)
+            return from_alpha_bars(ab, "subsequence", {}).betas
         if self.options["monotone"] and any(b > a for a, b in zip(v[1:], v)):
             raise ValueError("β decreases")
         return np.asarray(v)
-
-
-def betas_from_alpha_bars(ab: np.ndarray) -> np.ndarray:
-    """β_t = 1 − ᾱ_t/ᾱ_{t−1} (ᾱ_0 = 1), the inverse of ᾱ_t = ∏ (1 − β_s) (Ho et al. 2020)."""
-    ab = np.asarray(ab, dtype=np.float64)
-    if np.any(np.diff(ab) >= 0):
-        raise ValueError("ᾱ must decrease along the steps")
-    return 1.0 - ab / np.concatenate([[1.0], ab[:-1]])
 
 
 def make_space(table: Mapping[str, Any], steps: int, training: NoiseSchedule | None,
@@ -209,9 +199,3 @@ _OPTIONS_OF = {"geometric": {"kind", "beta_start", "beta_end", "monotone"},
                "karras": {"kind", "logsnr_max", "logsnr_min", "rho", "monotone"},
                "subsequence": {"kind", "train_steps", "monotone"},
                "per-step": {"kind", "betas", "monotone"}}
-
-
-def log_snr(schedule: NoiseSchedule) -> np.ndarray:
-    """λ_t = ln(ᾱ_t / (1 − ᾱ_t)) per step (Kingma et al. 2021, "Variational diffusion models")."""
-    ab = schedule.alpha_bars
-    return np.log(ab) - np.log1p(-ab)
