@@ -11,6 +11,8 @@ Karras-ρ schedules with free log-SNR endpoints, K points per dimension.
 1. **halving** (η = 4, first rung one utterance): winner and finalists confirmed with a fresh seed
    on the held-out split against the 1000-step reference (paired bootstrap interval, Holm p).
 2. **grid**: every grid point on every search utterance, same confirmation.
+3. **constrained**: halving over Karras-ρ, geometric and training-step sub-sequence spaces,
+   maximising stoi while keeping logmel_l1 within 0.15 of the reference on the search split.
 
 Targets (issue 15): halving's best held-out stoi within 1 % of the grid's; halving's syntheses at
 most a quarter of the grid's. Both runs share one output folder, so the reference is computed once.
@@ -55,6 +57,11 @@ def make_testset(folder: Path) -> Path:
 
 
 def config(manifest: Path, strategy: str, k: int) -> dict:
+    if strategy == "constrained":
+        c = config(manifest, "halving", k)
+        c["search"].update(objective="constrained", margins={"logmel_l1": 0.15}, candidates=3 * k ** 3,
+                           spaces=[{"kind": "karras"}, {"kind": "geometric"}, {"kind": "subsequence"}])
+        return c
     return {
         "vocoder": {"target": "vocobench.analytic:AnalyticDenoiser",
                     "options": {"conditioning": "step", "training_steps": 1000}},
@@ -76,7 +83,7 @@ def main() -> None:
     a = ap.parse_args()
     manifest = make_testset(a.out / "testset")
     res = {}
-    for strategy in ("halving", "grid"):
+    for strategy in ("halving", "grid", "constrained"):
         t0 = time.perf_counter()
         search(parse_config(config(manifest, strategy, a.grid_points), source=f"bench {strategy}"),
                a.out / "run", progress=False)
@@ -86,6 +93,9 @@ def main() -> None:
             src = a.out / "run" / "search" / f
             (a.out / f"{strategy}_{f}").write_bytes(src.read_bytes())
         t = s["targets"][0]
+        if not t["finalists"]:
+            print(f"\n== {strategy}: no feasible candidate")
+            continue
         best = t["finalists"][0]
         res[strategy] = {"syntheses": t["budget"]["syntheses_asked"], "seconds": time.perf_counter() - t0,
                          "winner": best["name"], "betas": best["betas"], "overall": best["overall"],

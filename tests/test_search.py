@@ -228,3 +228,20 @@ def test_nfe_budget_gives_each_sampler_its_most_steps(tmp_path):
     ts = json.loads((out / "search" / "search.json").read_text())["targets"]
     got = {t["sampler"]: (t["steps"], t["nfe"], len(t["finalists"][0]["betas"])) for t in ts}
     assert got == {"heun": (3, 5, 3), "ddim": (5, 5, 5)}
+
+
+def test_pareto_front_and_margins_follow_their_definitions():
+    """Pareto dominance: no worse on every metric, better on one (Pareto 1906, textbook form);
+    a margin bounds how much worse than the reference a candidate may be, in the metric's unit."""
+    from vocobench.search import Objective, pareto_front
+
+    obj = Objective("pareto", "stoi", ["stoi", "logmel_l1"], {"stoi": True, "logmel_l1": False})
+    pts = [{"stoi": 0.9, "logmel_l1": 1.0}, {"stoi": 0.8, "logmel_l1": 0.5},
+           {"stoi": 0.85, "logmel_l1": 1.2}, {"stoi": 0.9, "logmel_l1": 1.0},
+           {"stoi": math.nan, "logmel_l1": 0.1}]
+    assert pareto_front(pts, obj) == [0, 1, 3]
+    c = Objective("constrained", "stoi", ["stoi"], obj.higher, {"logmel_l1": 0.15},
+                  reference={"stoi": 0.8, "logmel_l1": 1.0})
+    assert c.value({"stoi": 0.9, "logmel_l1": 1.14}) == pytest.approx(0.9)
+    assert c.value({"stoi": 0.9, "logmel_l1": 1.16}) == -math.inf
+    assert Objective("single", "logmel_l1", [], obj.higher).value({"logmel_l1": 0.7}) == -0.7
