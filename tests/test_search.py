@@ -219,12 +219,12 @@ def test_budget_stops_every_strategy(tmp_path, strategy):
 
 def test_nfe_budget_gives_each_sampler_its_most_steps(tmp_path):
     """Heun spends 2N − 1 evaluations (Karras et al. 2022, Alg. 1): a budget of 5 buys 3 steps;
-    DDIM spends N: 5 steps. The winner's β list has that many entries."""
+    DDIM spends N: 5 steps. The winner's β list has that many entries. (Two worker processes.)"""
     cfg = _resume_config(tmp_path)
     cfg.write_text(cfg.read_text().replace('steps = [3]\nstrategy = "grid"', 'nfe = [5]\n'
                                            'strategy = "random"\ncandidates = 2').replace(
         'samplers = ["ddim"]', 'samplers = ["heun", "ddim"]'))
-    out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False)
+    out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False, workers=2)
     ts = json.loads((out / "search" / "search.json").read_text())["targets"]
     got = {t["sampler"]: (t["steps"], t["nfe"], len(t["finalists"][0]["betas"])) for t in ts}
     assert got == {"heun": (3, 5, 3), "ddim": (5, 5, 5)}
@@ -245,3 +245,13 @@ def test_pareto_front_and_margins_follow_their_definitions():
     assert c.value({"stoi": 0.9, "logmel_l1": 1.14}) == pytest.approx(0.9)
     assert c.value({"stoi": 0.9, "logmel_l1": 1.16}) == -math.inf
     assert Objective("single", "logmel_l1", [], obj.higher).value({"logmel_l1": 0.7}) == -0.7
+
+
+def test_wall_clock_budget_stops_the_search(tmp_path):
+    """A time budget already spent lets no candidate through; the summary says so."""
+    cfg = _resume_config(tmp_path)
+    cfg.write_text(cfg.read_text().replace('strategy = "grid"', 'strategy = "grid"\nmax_seconds = 1e-9'))
+    out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False)
+    t = json.loads((out / "search" / "search.json").read_text())["targets"][0]
+    assert (t["stopped"], t["budget"]["syntheses_asked"], t["finalists"]) == ("budget spent", 0, [])
+    assert "No candidate was scored" in (out / "search" / "summary.md").read_text()

@@ -48,6 +48,8 @@ class Evaluator:
         self.history: dict[str, dict[str, Any]] = {}     # name → candidate, n, means, value
         self.trace: list[dict[str, Any]] = []
         self.bar = Progress(max_syntheses or 0, progress, label="search")
+        self.cut = False            # the last batch was cut short by the budget
+        self.reach: dict[str, int] = {}
 
     @property
     def spent(self) -> int:
@@ -70,9 +72,13 @@ class Evaluator:
         cfg = dataclasses.replace(self.cfg, schedules=list(specs), steps=[steps],
                                   samplers=[self.sampler], seeds=list(seeds))
         setup = prepare(cfg, self.out, testset=TestSet(self.ts.source, list(utts)))
-        jobs = setup.jobs
+        jobs = sorted(setup.jobs, key=lambda j: (j.point, j.utt, j.seed))   # whole candidates first
         if budget:
             jobs = self._within_budget(jobs)
+            seen, self.reach = set(self.asked), {}
+            for j in jobs:              # distinct syntheses spent once this candidate is done
+                seen.add(j.key)
+                self.reach[setup.grid[j.point].spec.name] = len(seen)
         todo = [j for j in jobs if j.key not in self.done]
         bar = self.bar if budget else Progress(len(todo), self.progress, label="reference/held-out")
         if budget:
@@ -87,8 +93,7 @@ class Evaluator:
         for j in jobs:
             if j.key in self.done:
                 out[setup.grid[j.point].spec.name].append(self.done[j.key])
-        if len(jobs) < len(setup.jobs):
-            raise BudgetSpent()
+        self.cut = len(jobs) < len(setup.jobs)
         return out
 
     def _within_budget(self, jobs: list) -> list:
@@ -110,22 +115,28 @@ class Evaluator:
         """Objective values of ``cands`` on the first ``n`` search utterances (all: None)."""
         n = self.n_search if n is None else min(n, self.n_search)
         uniq = list({c.name: c for c in cands if (c.name, n) not in self.scores}.values())
-        for i in range(0, len(uniq), max(1, self.workers)):
-            chunk = uniq[i:i + max(1, self.workers)]
+        size = len(uniq) if self.max_seconds is None else max(1, self.workers)
+        for i in range(0, len(uniq), max(1, size)):       # one batch, unless the clock is watched
+            chunk = uniq[i:i + max(1, size)]
             specs = [ScheduleSpec(c.name, "explicit", {"betas": c.betas}) for c in chunk]
             recs = self.records(specs, self.steps, self.search[:n], self.seeds)
             for c in chunk:
-                means = {col: float(utterance_means(recs[c.name], col).mean())
-                         for col in self.obj.columns}
-                value = self.obj.value(means)
-                self.scores[(c.name, n)] = value
-                h = self.history.setdefault(c.name, {"candidate": c, "n": 0})
-                if n >= h["n"]:
-                    h.update(n=n, means=means, value=value)
-                self.trace.append({"syntheses": self.spent, "seconds": time.perf_counter() - self.t0,
-                                   "candidate": c.name, "space": c.space, "utterances": n,
-                                   "value": value if math.isfinite(value) else None})
+                if len(recs[c.name]) == n * len(self.seeds):      # else cut by the budget
+                    self._keep(c, n, recs[c.name])
+            if self.cut:
+                raise BudgetSpent()
         return [self.scores[(c.name, n)] for c in cands]
+
+    def _keep(self, c: Candidate, n: int, recs: list[dict[str, Any]]) -> None:
+        means = {col: float(utterance_means(recs, col).mean()) for col in self.obj.columns}
+        value = self.obj.value(means)
+        self.scores[(c.name, n)] = value
+        h = self.history.setdefault(c.name, {"candidate": c, "n": 0})
+        if n >= h["n"]:
+            h.update(n=n, means=means, value=value)
+        self.trace.append({"syntheses": self.reach.get(c.name, self.spent), "seconds": time.perf_counter() - self.t0,
+                           "candidate": c.name, "space": c.space, "utterances": n,
+                           "value": value if math.isfinite(value) else None})
 
     def complete(self) -> list[dict[str, Any]]:
         """Candidates scored on the whole search split, best first."""
