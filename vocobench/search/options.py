@@ -15,7 +15,7 @@ STRATEGIES = ("grid", "random", "local", "halving", "tpe", "cmaes")
 OBJECTIVES = ("single", "constrained", "pareto")
 SPACE_KINDS = ("geometric", "linear", "karras", "subsequence", "per-step")
 HOLDOUT_FRACTION = 0.5          # our choice: as many utterances to confirm as to search
-HALVING_ETA = 3                 # Li et al. 2017 (Hyperband), their default reduction factor η = 3
+HALVING_ETA = 3                 # Li et al. 2017 (Hyperband): their default η = 3 (from memory)
 GRID_POINTS = 5                 # our choice: points per continuous dimension of a grid
 FINALISTS = 3                   # our choice: candidates confirmed on the held-out split
 

@@ -26,13 +26,15 @@ import numpy as np
 from ..errors import InputError
 from ..params import Boolean, Choice, Custom, Integer, ListOf, Param, Real, Table
 from ..schedules import NoiseSchedule, from_alpha_bars, geometric, karras, linear
+from .options import SPACE_KINDS
 
 # Default ranges: our choices, wide enough to hold the usual published endpoints
 # (β_1 = 1e-4, β_N = 0.02..0.5: Ho et al. 2020, Kong et al. 2021; ρ = 7: Karras et al. 2022).
 GEOMETRIC_RANGES = {"beta_start": (1e-6, 1e-2), "beta_end": (0.05, 0.9)}
 LINEAR_RANGES = {"beta_start": (1e-6, 1e-3), "beta_end": (0.01, 0.9)}
 KARRAS_RANGES = {"logsnr_max": (2.0, 16.0), "logsnr_min": (-12.0, -1.0), "rho": (1.0, 12.0)}
-# per-step candidate β values: the 6-step grid values of Kong et al. 2021 (from memory)
+# per-step candidate β values: our choice, spanning the fast-schedule β of Kong et al. 2021
+# (values from memory)
 PER_STEP_BETAS = (1e-4, 1e-3, 1e-2, 0.05, 0.2, 0.5, 0.7)
 SUBSEQUENCE_POINTS = 16         # our choice: log-spaced candidate training steps
 
@@ -47,7 +49,7 @@ def _pair(v: Any) -> tuple[float, float]:
 
 _RANGE = Custom("[low, high]", _pair, "list")
 SPACE = Table("search.spaces", [
-    Param("kind", Choice(("geometric", "linear", "karras", "subsequence", "per-step")),
+    Param("kind", Choice(SPACE_KINDS),
           doc="the family"),
     Param("beta_start", _RANGE, None, "geometric/linear: range of β_1"),
     Param("beta_end", _RANGE, None, "geometric/linear: range of β_N"),

@@ -23,7 +23,7 @@ from ..errors import InputError
 from .spaces import Candidate, Space
 
 LOCAL_START_STEP = 0.25         # our choice: a quarter of each range
-RANDOM_TRIES = 50               # draws per wanted candidate before giving up on invalid regions
+RANDOM_TRIES = 50               # our choice: draws per wanted candidate before giving up on invalid regions
 
 
 def random_candidates(space: Space, n: int, rng: np.random.Generator) -> list[Candidate]:
@@ -113,13 +113,15 @@ def local(space: Space, ev: Any, o: Any, rng: np.random.Generator) -> None:
 
 def _optuna(kind: str) -> Callable[[Space, Any, Any, np.random.Generator], None]:
     def run(space: Space, ev: Any, o: Any, rng: np.random.Generator) -> None:
-        try:
-            import optuna
-            if kind == "cmaes":
-                import cmaes  # noqa: F401  (optuna's CMA-ES sampler runs on it)
-        except ImportError as e:
-            raise InputError(f"strategy needs {e.name}: pip install 'vocobench[search]'",
-                             field="search.strategy", value=kind) from None
+        from importlib.util import find_spec
+
+        # optuna's CMA-ES sampler runs on the cmaes package
+        for need in ("optuna", *(("cmaes",) if kind == "cmaes" else ())):
+            if find_spec(need) is None:
+                raise InputError(f"strategy needs {need}: pip install 'vocobench[search]'",
+                                 field="search.strategy", value=kind)
+        import optuna
+
         optuna.logging.set_verbosity(optuna.logging.WARNING)
         sampler = (optuna.samplers.TPESampler(seed=o.seed) if kind == "tpe"
                    else optuna.samplers.CmaEsSampler(seed=o.seed))
