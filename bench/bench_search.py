@@ -117,6 +117,8 @@ def main() -> None:
     print(f"syntheses: halving {h['syntheses']} / grid {g['syntheses']} = {cost:.3f} "
           f"(target ≤ {TARGET_COST}) -> {'met' if cost <= TARGET_COST else 'NOT met'}")
     (a.out / "bench_search.json").write_text(json.dumps(res, indent=1))
+    if rel > TARGET_REL or cost > TARGET_COST:
+        sys.exit(1)
 
 
 if __name__ == "__main__":
