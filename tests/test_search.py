@@ -223,7 +223,7 @@ def test_nfe_budget_gives_each_sampler_its_most_steps(tmp_path):
     cfg = _resume_config(tmp_path)
     cfg.write_text(cfg.read_text().replace('steps = [3]\nstrategy = "grid"', 'nfe = [5]\n'
                                            'strategy = "random"\ncandidates = 2').replace(
-        'samplers = ["ddim"]', 'samplers = ["heun", "ddim"]'))
+        'samplers = ["ddim"]\nsteps = [3]', 'samplers = ["heun", "ddim"]\nnfe = [4]'))
     out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False, workers=2)
     ts = json.loads((out / "search" / "search.json").read_text())["targets"]
     got = {t["sampler"]: (t["steps"], t["nfe"], len(t["finalists"][0]["betas"])) for t in ts}

@@ -69,7 +69,7 @@ class Evaluator:
     def records(self, specs: Sequence[ScheduleSpec], steps: int, utts: Sequence[Utterance],
                 seeds: Sequence[int], budget: bool = True) -> dict[str, list[dict[str, Any]]]:
         """Item records of each spec on ``utts`` × ``seeds``: from the journal, else synthesised."""
-        cfg = dataclasses.replace(self.cfg, schedules=list(specs), steps=[steps],
+        cfg = dataclasses.replace(self.cfg, schedules=list(specs), steps=[steps], nfe=None,
                                   samplers=[self.sampler], seeds=list(seeds))
         setup = prepare(cfg, self.out, testset=TestSet(self.ts.source, list(utts)))
         jobs = sorted(setup.jobs, key=lambda j: (j.point, j.utt, j.seed))   # whole candidates first

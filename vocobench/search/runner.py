@@ -40,7 +40,7 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
     opts = SearchOptions.from_mapping(getattr(cfg, "search", None), cfg.source)
     decide = ReportOptions.from_mapping(cfg.decide, source=cfg.source)
     probe = ScheduleSpec("probe", "explicit", {"betas": [0.5]})   # the [sweep] grid is not searched
-    base = prepare(dataclasses.replace(cfg, schedules=[probe], steps=[1]), out_dir)
+    base = prepare(dataclasses.replace(cfg, schedules=[probe], steps=[1], nfe=None), out_dir)
     out, plugin, ts = base.out_dir, base.plugin, base.testset
     cols = [c for m in base.metrics for c in m.columns]
     named = set(directed_columns(cols))
