@@ -35,10 +35,11 @@ class Evaluator:
                  done: dict[str, dict[str, Any]], *, steps: int, sampler: str, seeds: Sequence[int],
                  search: Sequence[Utterance], objective: Objective, max_syntheses: int | None,
                  max_seconds: float | None, workers: int, scheduler: str | None,
-                 progress: bool) -> None:
+                 progress: bool, identity: Any = None) -> None:
         self.cfg, self.out, self.ts, self.journal, self.done = cfg, out, testset, journal, done
         self.steps, self.sampler, self.seeds, self.search = steps, sampler, list(seeds), list(search)
         self.obj = objective
+        self.identity = identity        # the vocoder's fingerprint, computed once
         self.max_syntheses, self.max_seconds = max_syntheses, max_seconds
         self.workers, self.scheduler, self.progress = workers, scheduler, progress
         self.t0 = time.perf_counter()
@@ -71,7 +72,8 @@ class Evaluator:
         """Item records of each spec on ``utts`` × ``seeds``: from the journal, else synthesised."""
         cfg = dataclasses.replace(self.cfg, schedules=list(specs), steps=[steps], nfe=None,
                                   samplers=[self.sampler], seeds=list(seeds))
-        setup = prepare(cfg, self.out, testset=TestSet(self.ts.source, list(utts)))
+        setup = prepare(cfg, self.out, testset=TestSet(self.ts.source, list(utts)),
+                        identity=self.identity)
         jobs = sorted(setup.jobs, key=lambda j: (j.point, j.utt, j.seed))   # whole candidates first
         if budget:
             jobs = self._within_budget(jobs)

@@ -73,7 +73,7 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
                                seeds=opts.seeds, search=split.search, objective=obj,
                                max_syntheses=opts.max_syntheses, max_seconds=opts.max_seconds,
                                workers=n_workers, scheduler=scheduler or cfg.scheduler,
-                               progress=progress)
+                               progress=progress, identity=base.identity)
                 ref_search = ev.records([ref_spec], ref_steps, split.search, opts.seeds,
                                         budget=False)[ref_spec.name]
                 obj.reference = {c: float(utterance_means(ref_search, c).mean()) for c in obj.columns}
