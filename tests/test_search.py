@@ -255,3 +255,19 @@ def test_wall_clock_budget_stops_the_search(tmp_path):
     t = json.loads((out / "search" / "search.json").read_text())["targets"][0]
     assert (t["stopped"], t["budget"]["syntheses_asked"], t["finalists"]) == ("budget spent", 0, [])
     assert "No candidate was scored" in (out / "search" / "summary.md").read_text()
+
+
+def test_pareto_objective_confirms_only_non_dominated_candidates(tmp_path):
+    cfg = _resume_config(tmp_path)
+    cfg.write_text(cfg.read_text().replace('use = ["logmel_l1"]', 'use = ["logmel_l1", "stoi"]')
+                   .replace('finalists = 1', 'finalists = 2\nobjective = "pareto"\n'
+                            'primary = "stoi"\nmetrics = ["stoi", "logmel_l1"]'))
+    out = search(load_config(cfg), tmp_path / "out", progress=False, plots=False)
+    t = json.loads((out / "search" / "search.json").read_text())["targets"][0]
+    fin = [f["optimistic_search_split"] for f in t["finalists"]]
+    assert fin
+    for a in fin:                   # no finalist dominates another (stoi up, logmel_l1 down)
+        for b in fin:
+            assert not (a["stoi"] >= b["stoi"] and a["logmel_l1"] <= b["logmel_l1"]
+                        and (a["stoi"] > b["stoi"] or a["logmel_l1"] < b["logmel_l1"]))
+    assert all(set(f["held_out"]) == {"stoi", "logmel_l1"} for f in t["finalists"])
