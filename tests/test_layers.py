@@ -26,6 +26,7 @@ LAYERS: dict[str, int] = {
     "runtables": 4, "stats": 4,
     "report": 5,
     "sweep": 6,
+    "search": 7,
     "gate": 7,
     "cli": 8, "docs": 8,
 }

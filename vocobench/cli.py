@@ -45,6 +45,18 @@ def cmd_run(a: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_search(a: argparse.Namespace) -> int:
+    from .config import load_config
+    from .search import search
+
+    cfg = load_config(a.config)
+    out = search(cfg, a.out, progress=not a.quiet, workers=a.workers, scheduler=a.scheduler,
+                 plots=not a.no_plots)
+    print((out / "search" / "summary.md").read_text(encoding="utf-8"))
+    print(f"search results: {out / 'search'} (schedules to paste: winners.toml)")
+    return 0
+
+
 def cmd_demo(a: argparse.Namespace) -> int:
     config = Path(a.scenario) / "config.toml"
     if not config.is_file():
@@ -141,6 +153,20 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("config", metavar="CONFIG", type=Path, help="TOML run configuration")
     _run_flags(r)
     r.set_defaults(fn=cmd_run)
+
+    q = sub.add_parser("search", help="search N-step schedules, then confirm them on held-out "
+                                      "utterances", description="Search the inference schedules "
+                       "described by the [search] table of CONFIG on part of the utterances, then "
+                       "re-run the best with fresh seeds on the others and compare them with the "
+                       "reference. Finished syntheses are kept: re-run to resume.")
+    q.add_argument("config", metavar="CONFIG", type=Path, help="TOML run configuration with [search]")
+    q.add_argument("--out", type=Path, metavar="DIR",
+                   help="output directory (default: from the config, else reports/run)")
+    q.add_argument("--workers", type=int, metavar="N", help="parallel synthesis-and-scoring processes")
+    q.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
+    q.add_argument("--no-plots", action="store_true", help="skip the trace and schedule plots")
+    q.add_argument("-q", "--quiet", action="store_true", help="no progress output")
+    q.set_defaults(fn=cmd_search)
 
     d = sub.add_parser("demo", help="run the bundled pier-announcement scenario (CPU, about a minute)",
                        description="Sweep the analytic demo denoiser over the bundled test set.")

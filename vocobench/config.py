@@ -98,6 +98,7 @@ CONFIG = Table("", [
     Param("output", OUTPUT, doc="results"),
     Param("run", RUN, doc="execution"),
     Param("decide", MapOf(), {}, "options of the decision stage (see [decide])"),
+    Param("search", MapOf(), {}, "options of `vocobench search` (see [search])"),
 ], title="Run config file (`vocobench run CONFIG`)", entry="section")
 SECTIONS = tuple(CONFIG)
 
@@ -137,6 +138,7 @@ class RunConfig:
     scheduler: str | None = None
     max_failed_share: float = RUN.field("max_failed_share")
     decide: dict[str, Any] = CONFIG.field("decide")
+    search: dict[str, Any] = CONFIG.field("search")
     source: str = "<config>"
     raw: dict[str, Any] = field(default_factory=dict)
 
@@ -179,4 +181,4 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
                      save_audio=out["save_audio"], workers=rn["workers"],
                      item_timeout_s=rn["item_timeout_s"], scheduler=rn["scheduler"],
                      max_failed_share=rn["max_failed_share"],
-                     decide=d["decide"], source=source, raw=dict(data))
+                     decide=d["decide"], search=d["search"], source=source, raw=dict(data))

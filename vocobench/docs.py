@@ -14,13 +14,15 @@ BEGIN, END = "<!-- params:begin -->", "<!-- params:end -->"
 
 
 def parameter_tables() -> list[Table]:
-    """Run config sections, schedule kinds, sampler and metric options, [decide], gate policy."""
+    """Run config sections, schedule kinds, sampler and metric options, [decide], [search] and its
+    spaces, gate policy."""
     from .config import CONFIG
     from .gate.policy import POLICY
     from .metrics.base import REGISTRY, metric_class
     from .report.options import DECIDE
     from .samplers import SAMPLER_OPTIONS
     from .schedules import KIND_OPTIONS
+    from .search import SEARCH, SPACE
 
     metrics = []
     for name in REGISTRY:
@@ -28,7 +30,7 @@ def parameter_tables() -> list[Table]:
         spec = cls.options_spec
         metrics.append(Table(f"metrics.options.{name}", spec.params, doc=cls.description + ".",
                              rules=spec.rules, entry="option"))
-    return [CONFIG, *KIND_OPTIONS.values(), *SAMPLER_OPTIONS.values(), *metrics, DECIDE, POLICY]
+    return [CONFIG, *KIND_OPTIONS.values(), *SAMPLER_OPTIONS.values(), *metrics, DECIDE, SEARCH, SPACE, POLICY]
 
 
 def configuration_reference() -> str:
