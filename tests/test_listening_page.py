@@ -142,7 +142,9 @@ def test_page_renders_and_every_audio_loads_in_chromium(page, tmp_path):
     # Negative control: a missing clip is reported as an error (so the check above can fail).
     broken = tmp_path / "broken"
     shutil.copytree(html_path.parent, broken)
-    (broken / "audio" / "u001_ref.wav").unlink()
+    clips = sorted((broken / "audio").glob("*.wav"))     # named by job key / utterance hash
+    assert len(clips) == 16
+    clips[0].unlink()
     dom = _chromium_dom((broken / "listening.html").as_uri(), tmp_path / "profile2")
     states = re.findall(r'<audio[^>]*data-state="(\w+)"', dom)
     assert states.count("error") == 1 and states.count("ready") == 15, states
