@@ -123,3 +123,55 @@ def test_steps_must_be_positive_integers():
         with pytest.raises(InputError) as e:
             S.linear(bad)
         assert e.value.field == "steps"
+
+
+# -- inference spacings mapped onto the training schedule --------------------------------------
+def test_karras_spacing_matches_edm_eq5():
+    # Karras et al. 2022, Eq. 5: σ_i = (σ_max^{1/ρ} + i/(N−1)·(σ_min^{1/ρ} − σ_max^{1/ρ}))^ρ,
+    # i = 0..N−1 (noisiest first), ρ = 7 (their Table 1); σ = √((1−ᾱ)/ᾱ) for a VP process (Sec. 4)
+    n, rho, lo, hi = 9, 7.0, 0.002, 80.0
+    want = [(hi ** (1 / rho) + i / (n - 1) * (lo ** (1 / rho) - hi ** (1 / rho))) ** rho
+            for i in range(n)]
+    got = S.ScheduleSpec("k", "karras", {"sigma_min": lo, "sigma_max": hi}).build(n)
+    ab = got.alpha_bars[::-1]                                     # noisiest first
+    np.testing.assert_allclose(np.sqrt((1 - ab) / ab), want, rtol=1e-9)
+    assert got.params["rho"] == rho == S.KARRAS_RHO
+
+
+def test_karras_and_logsnr_default_to_the_training_range():
+    train = S.linear(1000)
+    ab = train.alpha_bars
+    for kind in ("karras", "logsnr", "uniform-t"):
+        sched = S.ScheduleSpec(kind, kind).build(12, train)
+        # the ends are the training schedule's first and last noise levels
+        np.testing.assert_allclose(sched.alpha_bars[[0, -1]], ab[[0, -1]], rtol=1e-10)
+        assert np.all(np.diff(sched.alpha_bars) < 0)
+
+
+def test_logsnr_spacing_is_uniform_in_lambda():
+    # Lu et al. 2022, Sec. 3.1: λ_t = log(α_t/σ_t) = ½·log(ᾱ/(1−ᾱ)); the "logSNR" spacing steps
+    # uniformly in it
+    sched = S.logsnr(7, lambda_min=-4.0, lambda_max=5.0)
+    lam = [0.5 * math.log(a / (1 - a)) for a in sched.alpha_bars]
+    np.testing.assert_allclose(lam, np.linspace(5.0, -4.0, 7), atol=1e-9)
+
+
+def test_uniform_t_lands_on_evenly_spaced_training_steps():
+    # Lu et al. 2022, "time-uniform" steps; mapped back onto the training schedule by the
+    # √ᾱ interpolation every schedule uses (Kong et al. 2021), they are evenly spaced steps
+    from vocobench.samplers import fractional_steps
+
+    train = S.linear(1000)
+    steps, clamped = fractional_steps(train, S.uniform_t(10, train).alpha_bars)
+    np.testing.assert_allclose(steps, np.linspace(0, 999, 10), atol=1e-6)
+    assert clamped == 0
+
+
+def test_spacings_need_a_training_schedule_or_a_range():
+    with pytest.raises(InputError) as e:
+        S.ScheduleSpec("u", "uniform-t").build(4)
+    assert e.value.field == "kind" and "training schedule" in str(e.value)
+    assert len(S.ScheduleSpec("l", "logsnr", {"lambda_min": -3, "lambda_max": 3}).build(4)) == 4
+    with pytest.raises(InputError) as e:
+        S.make_spec({"kind": "karras", "sigma_min": 10.0, "sigma_max": 1.0})
+    assert e.value.field == "sweep.schedule.sigma_min"

@@ -30,6 +30,12 @@ DEMO_FRONTEND = MelFrontEnd(sample_rate=22050, n_fft=1024, win_length=1024, hop_
 TRAIN_BETA_START = 1e-6
 TRAIN_BETA_END = 0.02
 MIN_VARIANCE = 1e-10          # −100 dB re full scale: floor of the prior's coefficient variance
+# Noise-level estimation: the log-likelihood is searched on a grid of half log-SNR values λ, then
+# refined by bounded Brent minimisation between the grid neighbours of the best point (our choice:
+# the grid spans ᾱ from 2e-9 to 1 − 2e-9, far beyond any training schedule's range).
+ESTIMATE_LAMBDA_RANGE = (-10.0, 10.0)
+ESTIMATE_GRID = 81
+ESTIMATE_XTOL = 1e-9          # in λ
 
 
 @lru_cache(maxsize=8)
@@ -133,6 +139,37 @@ class AnalyticDenoiser:
         ab = self.alpha_bar(t)[:, None, None]
         gain = np.sqrt(1 - ab) / (ab * p + (1 - ab))
         return imdct(gain * mdct(x, n), n).astype(np.float32)
+
+    def estimate_noise_level(self, x_t: np.ndarray, features: np.ndarray) -> np.ndarray:
+        """Maximum-likelihood ᾱ of each ``x_t`` (B, samples) under the prior (San-Roman et al.
+        2021 estimate the noise level with a network; this model knows its law exactly).
+
+        The MDCT coefficients of ``x_t = √ᾱ·x_0 + √(1−ᾱ)·ε`` are independent N(0, v_j) with
+        v_j = ᾱ·P_j + 1 − ᾱ, so the log-likelihood is −½·Σ_j (log v_j + c_j²/v_j); it is maximised
+        over λ = ½·log(ᾱ/(1−ᾱ)) (grid search, then Brent on the bracketing interval).
+        """
+        from scipy.optimize import minimize_scalar
+
+        x = np.asarray(x_t, dtype=np.float64)
+        n = self.frontend.hop_length
+        p = self._prior_cached(np.asarray(features))[..., : x.shape[-1] // n, :]
+        c2 = mdct(x, n) ** 2
+        p = np.broadcast_to(p, c2.shape).reshape(c2.shape[0], -1)
+        c2 = c2.reshape(c2.shape[0], -1)
+        grid = np.linspace(*ESTIMATE_LAMBDA_RANGE, ESTIMATE_GRID)
+        out = np.empty(x.shape[0])
+        for b in range(x.shape[0]):
+            def nll(lam: float) -> float:
+                ab = 0.5 * (1.0 + np.tanh(lam))
+                v = ab * p[b] + (1.0 - ab)
+                return 0.5 * float(np.sum(np.log(v) + c2[b] / v))
+
+            k = int(np.argmin([nll(g) for g in grid]))
+            lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, grid.size - 1)]
+            lam = minimize_scalar(nll, bounds=(lo, hi), method="bounded",
+                                  options={"xatol": ESTIMATE_XTOL}).x
+            out[b] = 0.5 * (1.0 + np.tanh(lam))
+        return out
 
     def sample_prior(self, features: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """Exact draw from the prior (for tests): ``Mᵀ(√P·w)``."""

@@ -15,10 +15,16 @@ from .contracts import Plugin, instantiate, resolve, to_numpy
 from .errors import InputError
 from .metrics import DEFAULT_TOLERANCE_HOPS, LengthPolicy
 from .outputs import waveform_problems
+from .samplers import PREDICTIONS, Pred, fractional_steps
 from .schedules import cosine, subsequence
 
 PROBE_SECONDS = 0.5
 PROBE_STEPS = 3
+# Prediction check: the probe is noised to these ᾱ, where √ᾱ and √(1−ᾱ) differ enough for ε, x_0
+# and v readings of one output to disagree (our choice); a reading is decided when its x_0 error
+# is below this fraction of the next best reading's (our choice).
+PREDICTION_ALPHA_BARS = (0.2, 0.5)
+PREDICTION_MARGIN = 0.5
 
 
 @dataclass(frozen=True)
@@ -73,6 +79,7 @@ def check_object(obj: Any, name: str = "",
              else cosine(PROBE_STEPS))
     if plugin.kind == "denoiser":
         out += _check_denoiser(plugin, feats)
+        out += _check_prediction(plugin, feats)
     for sampler in plugin.samplers():
         out += _check_synthesis(plugin, sampler, feats, sched, tolerance_hops)
     return out
@@ -104,6 +111,44 @@ def _check_denoiser(plugin: Plugin, feats: np.ndarray) -> list[Finding]:
     except Exception as e:
         res.append(Finding(False, "batch of 1", f"raised {type(e).__name__}: {e}"))
     return res
+
+
+def _check_prediction(plugin: Plugin, feats: np.ndarray) -> list[Finding]:
+    """Does the output read best as the declared prediction? The probe signal x_0 is noised to a
+    few levels; each reading (ε, x_0, v; Salimans & Ho 2022) of the output gives an x̂_0 and the
+    one closest to x_0 should be the declared one. Undecided (ok) when no reading clearly wins,
+    e.g. for a model that does not denoise speech-like input."""
+    n = plugin.frontend.expected_samples(feats.shape[-1])
+    x0 = np.resize(probe_signal(plugin.sample_rate), n).astype(np.float64)[None]
+    rng = np.random.default_rng(0)
+    err = dict.fromkeys(PREDICTIONS, 0.0)
+    for ab in PREDICTION_ALPHA_BARS:
+        x_t = np.sqrt(ab) * x0 + np.sqrt(1 - ab) * rng.standard_normal(x0.shape)
+        if plugin.conditioning == "level":
+            t = np.array([np.sqrt(ab)])
+        else:
+            t, clamped = fractional_steps(plugin.training_schedule, np.array([ab]))
+            if clamped:
+                return [Finding(True, "declared prediction", f"not checked: ᾱ = {ab} lies outside "
+                                "the training schedule")]
+        try:
+            out = to_numpy(plugin.obj.predict_noise(x_t.astype(np.float32), feats[None], t))
+        except Exception as e:
+            return [Finding(False, "declared prediction", f"predict_noise raised {type(e).__name__}: {e}")]
+        if np.shape(out) != x_t.shape or not np.all(np.isfinite(out)):
+            return []                        # reported by the output checks above
+        for kind in PREDICTIONS:
+            err[kind] += float(np.sum((Pred(np.asarray(out, np.float64), x_t, ab, kind).x0 - x0) ** 2))
+    best, second = sorted(PREDICTIONS, key=err.__getitem__)[:2]
+    rel = {k: np.sqrt(v / (len(PREDICTION_ALPHA_BARS) * np.sum(x0 ** 2))) for k, v in err.items()}
+    detail = ", ".join(f"{k}: {rel[k]:.2f}" for k in PREDICTIONS) + " (relative x̂_0 error per reading)"
+    if err[best] > PREDICTION_MARGIN ** 2 * err[second]:
+        return [Finding(True, "declared prediction", f"undecided on the probe; {detail}")]
+    if best != plugin.prediction:
+        return [Finding(False, "declared prediction",
+                        f"declares prediction = '{plugin.prediction}' but the output reads as "
+                        f"'{best}'; {detail}")]
+    return [Finding(True, "declared prediction", f"'{best}'; {detail}")]
 
 
 def _check_synthesis(plugin: Plugin, sampler: str, feats: np.ndarray, sched: Any,

@@ -45,6 +45,9 @@ TESTSET = Table("testset", [
 SWEEP = Table("sweep", [
     Param("steps", ListOf(Integer(low=1), distinct=True), [1, 2, 4, 8, 25],
           "numbers of denoising steps (ignored by fixed-length schedules)"),
+    Param("nfe", ListOf(Integer(low=1), distinct=True), None,
+          "network-evaluation budgets instead of steps: each sampler gets the most steps that "
+          "spend at most this many (Heun: 2N − 1); unset: sweep by steps"),
     Param("samplers", ListOf(String(nonempty=True)), None,
           "samplers to sweep; unset: every sampler the plug-in offers"),
     Param("seeds", ListOf(Integer(low=0), distinct=True), [0], "noise seeds per utterance"),
@@ -110,6 +113,7 @@ class RunConfig:
     schedules: list[ScheduleSpec]
     steps: list[int] = SWEEP.field("steps")
     samplers: list[str] | None = None              # None: every sampler the plug-in offers
+    nfe: list[int] | None = None                   # set: sweep by network evaluations, not steps
     seeds: list[int] = SWEEP.field("seeds")
     options: dict[str, Any] = VOCODER.field("options")
     version: str | None = None
@@ -144,6 +148,9 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
     if target.split(":")[0].endswith(".py"):
         target = str((base / target.split(":")[0]).resolve()) + ":" + target.rsplit(":", 1)[1]
     schedules = [make_spec(s, source=source) for s in sw["schedule"]]
+    if sw["nfe"] is not None and "steps" in data["sweep"]:
+        raise InputError("give steps or nfe, not both", source=source, field="sweep.nfe",
+                         value=sw["nfe"])
     names = [s.name for s in schedules]
     if len(set(names)) != len(names):
         raise InputError("schedule names repeat", source=source, field="sweep.schedule.name",
@@ -155,7 +162,7 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
             raise InputError("file not found", source=source, field="vocoder.version_file",
                              value=str(version_file))
     return RunConfig(target=target, testset=base / d["testset"]["path"], schedules=schedules,
-                     steps=sw["steps"], samplers=sw["samplers"], seeds=sw["seeds"],
+                     steps=sw["steps"], samplers=sw["samplers"], nfe=sw["nfe"], seeds=sw["seeds"],
                      options=voc["options"], version=voc["version"], version_file=version_file,
                      search_path=[base, *(base / p for p in voc["search_path"])],
                      sampler_options=d["sampler_options"], metrics=met["use"],

@@ -13,7 +13,16 @@ NoiseSchedule or a β list), ``conditioning`` (``"step"``: fractional 0-based tr
 ``"level"``: continuous noise level √ᾱ) and ``predict_noise(x_t, features, t)`` with ``x_t``
 ``(B, samples)``, ``features`` ``(B, n_mels, frames)`` and ``t`` ``(B,)``, returning ε̂ shaped like
 ``x_t``. Optional: ``version``, ``synchronize()``, and ``sample(plan, features, n_samples, rng)``
-to run a :class:`~vocobench.samplers.StepPlan` itself (e.g. on a GPU, see ``torch_adapter``).
+to run a :class:`~vocobench.samplers.StepPlan` itself (e.g. on a GPU, see ``torch_adapter``;
+it runs any plan with :func:`vocobench.samplers.execute`, and takes ``trace=`` for adaptive plans).
+
+Optional denoiser declarations (defaults keep the plain ε-predicting Gaussian model):
+``prediction`` — what ``predict_noise`` returns: ``"eps"`` (ε̂, default), ``"x0"`` (x̂_0) or ``"v"``
+(v̂ = √ᾱ·ε − √(1−ᾱ)·x_0, Salimans & Ho 2022); every built-in sampler converts exactly.
+``noise_law`` — ``"gaussian"`` (default) or ``"gamma"`` with ``gamma_theta0`` (θ_0 of Nachmani et
+al. 2021): a Gamma-trained model runs only with the ``gamma`` sampler, and the reverse is an error.
+``estimate_noise_level(x_t, features)`` — ᾱ̂ per batch item, ``(B,)``; enables the samplers'
+``replan_at`` option (adaptive schedules, San-Roman et al. 2021).
 
 Outputs may be any array-like, torch tensors included (converted without importing torch).
 """
@@ -31,7 +40,8 @@ from .errors import InputError
 from .targets import resolve  # noqa: F401  (re-exported: plug-ins and metrics share it)
 from .frontend import MelFrontEnd
 from .params import is_integer
-from .samplers import available_samplers, make_plan, run_plan
+from .samplers import (GAUSSIAN, NoiseLaw, available_samplers, check_law, check_prediction,
+                       make_plan, parse_law, run_plan, sampler_nfe)
 from .schedules import NoiseSchedule
 
 
@@ -102,6 +112,8 @@ class Plugin:
     training_schedule: NoiseSchedule | None = None
     conditioning: str | None = None
     version: str | None = None
+    prediction: str = "eps"                 # what predict_noise returns: eps | x0 | v
+    noise_law: NoiseLaw = GAUSSIAN          # forward-process noise the denoiser was trained with
 
     @classmethod
     def wrap(cls, obj: Any, target: str = "", options: Mapping[str, Any] | None = None) -> "Plugin":
@@ -129,11 +141,14 @@ class Plugin:
             if p.conditioning == "step" and p.training_schedule is None:
                 raise InputError("a step-conditioned denoiser must declare training_schedule",
                                  source=source, field="training_schedule")
+            p.prediction = check_prediction(getattr(obj, "prediction", "eps"), source)
+            p.noise_law = parse_law(getattr(obj, "noise_law", None),
+                                    getattr(obj, "gamma_theta0", None), source)
         return p
 
     def samplers(self) -> list[str]:
         if self.kind == "denoiser":
-            return available_samplers()
+            return available_samplers(self.noise_law)
         return list(getattr(self.obj, "samplers", None) or ["native"])
 
     def describe(self) -> dict[str, Any]:
@@ -142,10 +157,15 @@ class Plugin:
                 "frontend": self.frontend.to_dict() if self.frontend else None,
                 "conditioning": self.conditioning,
                 "training_schedule": (self.training_schedule.describe()
-                                      if self.training_schedule is not None else None)}
+                                      if self.training_schedule is not None else None),
+                # declared only when not the default, so cache keys of earlier runs stay valid
+                **({"prediction": self.prediction} if self.prediction != "eps" else {}),
+                **({"noise_law": self.noise_law.describe()} if self.noise_law.gamma else {})}
 
     def nfe(self, schedule: NoiseSchedule, sampler: str) -> int:
-        fn = getattr(self.obj, "nfe", None) if self.kind == "vocoder" else None
+        if self.kind == "denoiser":
+            return sampler_nfe(sampler, len(schedule))
+        fn = getattr(self.obj, "nfe", None)
         return int(fn(schedule, sampler)) if fn else len(schedule)
 
     def synthesizer(self, sampler: str, options: Mapping[str, Any] | None = None
@@ -160,18 +180,31 @@ class Plugin:
             return self.obj
         den, fe = self.obj, self.frontend
         opts = dict(options or {})
-        make_plan(sampler, _probe_schedule(), "level", None, opts)   # validate name and options
+        check_law(sampler, self.noise_law, self.target or None)
+        kw = {"prediction": self.prediction, "law": self.noise_law}
+        probe = make_plan(sampler, _probe_schedule(), "level", None, opts, **kw)  # validate options
+        estimate = getattr(den, "estimate_noise_level", None)
+        if probe.adaptive and not callable(estimate):
+            raise InputError("replan_at needs a denoiser with estimate_noise_level(x_t, features)",
+                             source=self.target or None,
+                             field=f"sampler_options.{sampler}.replan_at", value=opts.get("replan_at"))
         own_loop = _drives_plans(den)
 
         def synth(features: np.ndarray, schedule: NoiseSchedule, rng: np.random.Generator):
             plan = make_plan(sampler, schedule, self.conditioning or "step",
-                             self.training_schedule, opts)
+                             self.training_schedule, opts, **kw)
             feats = np.asarray(features)[None]
             n = fe.expected_samples(feats.shape[-1])  # type: ignore[union-attr]
+            trace: list | None = [] if plan.adaptive else None
+            extra = {"trace": trace} if plan.adaptive else {}
             if own_loop:
-                return den.sample(plan, feats, n, rng)[0]
-            return run_plan(plan, den.predict_noise, feats, n, rng)[0]
+                y = den.sample(plan, feats, n, rng, **extra)[0]
+            else:
+                y = run_plan(plan, den.predict_noise, feats, n, rng, estimate=estimate, **extra)[0]
+            synth.last_schedule = trace[0] if trace else None    # type: ignore[attr-defined]
+            return y
 
+        synth.last_schedule = None                                 # type: ignore[attr-defined]
         return synth
 
     def synchronize(self) -> None:

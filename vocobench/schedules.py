@@ -27,6 +27,8 @@ COSINE_MAX_BETA = 0.999
 KONG2021_FAST6 = (0.0001, 0.001, 0.01, 0.05, 0.2, 0.5)
 GEOMETRIC_BETA_END = 0.5        # our choice: ends noisy enough for few-step sweeps
 STRIDES = ("uniform", "quadratic")   # Song et al. 2021, App. D.2
+# Karras et al. 2022 ("EDM"), Eq. 5 and Table 1: σ_i spaced uniformly in σ^{1/ρ}, ρ = 7.
+KARRAS_RHO = 7.0
 
 
 @dataclass(frozen=True)
@@ -169,6 +171,74 @@ def subsequence(training: NoiseSchedule, n: int, stride: str = STRIDES[0]) -> No
                          params={"stride": stride, "training": training.name, "training_steps": T})
 
 
+# -- inference spacings mapped onto a training schedule --------------------------------------
+def training_alpha_bar(training: NoiseSchedule, t: np.ndarray) -> np.ndarray:
+    """ᾱ at fractional 0-based training steps ``t``: linear interpolation on √ᾱ, the rule by which
+    every inference level is mapped back onto training steps (Kong et al. 2021)."""
+    return np.interp(t, np.arange(len(training)), training.noise_levels) ** 2
+
+
+def from_alpha_bars(ab: np.ndarray, name: str, params: Mapping[str, Any]) -> NoiseSchedule:
+    """The schedule whose ᾱ_1..ᾱ_N are ``ab`` (decreasing): β_i = 1 − ᾱ_i/ᾱ_{i−1}, ᾱ_0 = 1."""
+    ab = np.asarray(ab, dtype=np.float64)
+    return NoiseSchedule(1.0 - ab / np.concatenate([[1.0], ab[:-1]]), name, params=params)
+
+
+def _needs_training(training: NoiseSchedule | None, kind: str) -> NoiseSchedule:
+    if training is None:
+        raise InputError(f"a '{kind}' schedule needs a denoiser with a training schedule (or "
+                         "explicit range options)", field="kind", value=kind)
+    return training
+
+
+def _training_range(training: NoiseSchedule | None, kind: str) -> tuple[float, float]:
+    """ᾱ at the noisiest and at the least noisy training step."""
+    ab = _needs_training(training, kind).alpha_bars
+    return float(ab[-1]), float(ab[0])
+
+
+def uniform_t(n: int, training: NoiseSchedule | None = None) -> NoiseSchedule:
+    """Steps uniform in training time from the first to the last training step, fractional steps
+    allowed (the "time-uniform" spacing of Lu et al. 2022, Sec. 3.4 and App. D)."""
+    tr = _needs_training(training, "uniform-t")
+    t = np.linspace(0.0, len(tr) - 1.0, _n(n)) if n > 1 else np.array([len(tr) - 1.0])
+    return from_alpha_bars(training_alpha_bar(tr, t), "uniform-t", {})
+
+
+def logsnr(n: int, training: NoiseSchedule | None = None, lambda_min: float | None = None,
+           lambda_max: float | None = None) -> NoiseSchedule:
+    """Steps uniform in λ = ½·log(ᾱ/(1−ᾱ)) (Lu et al. 2022, "logSNR" spacing), between the
+    training schedule's ends unless ``lambda_min``/``lambda_max`` are given."""
+    if lambda_min is None or lambda_max is None:
+        lo, hi = _training_range(training, "logsnr")
+        lambda_min = 0.5 * math.log(lo / (1 - lo)) if lambda_min is None else lambda_min
+        lambda_max = 0.5 * math.log(hi / (1 - hi)) if lambda_max is None else lambda_max
+    lam = np.linspace(lambda_max, lambda_min, _n(n)) if n > 1 else np.array([lambda_min])
+    return from_alpha_bars(0.5 * (1 + np.tanh(lam)), "logsnr",
+                           {"lambda_min": lambda_min, "lambda_max": lambda_max})
+
+
+def karras(n: int, training: NoiseSchedule | None = None, rho: float = KARRAS_RHO,
+           sigma_min: float | None = None, sigma_max: float | None = None) -> NoiseSchedule:
+    """σ_i = (σ_max^{1/ρ} + i/(N−1)·(σ_min^{1/ρ} − σ_max^{1/ρ}))^ρ (Karras et al. 2022, Eq. 5),
+    with σ = √((1−ᾱ)/ᾱ) (their VP ↔ σ mapping, Sec. 4) so ᾱ = 1/(1+σ²); the σ range defaults to
+    the training schedule's."""
+    if sigma_min is None or sigma_max is None:
+        lo, hi = _training_range(training, "karras")
+        sigma_max = math.sqrt((1 - lo) / lo) if sigma_max is None else sigma_max
+        sigma_min = math.sqrt((1 - hi) / hi) if sigma_min is None else sigma_min
+    i = np.arange(_n(n), dtype=np.float64)[::-1]                 # σ_1 (least noisy) first
+    frac = i / (n - 1) if n > 1 else np.zeros(1)
+    sig = (sigma_max ** (1 / rho) + frac * (sigma_min ** (1 / rho) - sigma_max ** (1 / rho))) ** rho
+    return from_alpha_bars(1.0 / (1.0 + sig ** 2), "karras",
+                           {"rho": rho, "sigma_min": sigma_min, "sigma_max": sigma_max})
+
+
+SPACINGS: dict[str, Callable[..., NoiseSchedule]] = {
+    "uniform-t": uniform_t, "logsnr": logsnr, "karras": karras,
+}
+
+
 def _n(n: int) -> int:
     if not is_integer(n) or n <= 0:
         raise InputError("number of steps must be a positive integer", field="steps", value=n)
@@ -202,6 +272,8 @@ class ScheduleSpec:
         elif self.kind == "explicit":
             s = explicit(opts["betas"])
             validate_betas(s.betas, source=f"schedule '{self.name}'", length=steps)
+        elif self.kind in SPACINGS:
+            s = SPACINGS[self.kind](steps, training, **opts)
         elif self.kind == "kong2021-fast6":
             s = kong_fast6()
             validate_betas(s.betas, source=f"schedule '{self.name}'", length=steps)
@@ -213,12 +285,13 @@ class ScheduleSpec:
 BUILDERS: dict[str, Callable[..., NoiseSchedule]] = {
     "linear": linear, "quadratic": quadratic, "geometric": geometric, "cosine": cosine,
 }
-KINDS = sorted([*BUILDERS, "stride", "explicit", "kong2021-fast6"])
+KINDS = sorted([*BUILDERS, *SPACINGS, "stride", "explicit", "kong2021-fast6"])
 _IN_UNIT = Real(0, 1, closed="neither", keep_int=True)       # a β: 0 < β < 1
+_POSITIVE = Real(low=0, closed="neither", keep_int=True)
 
 
-def _kind(kind: str, doc: str, *params: Param) -> Table:
-    return Table("sweep.schedule", params, entry="option", doc=doc,
+def _kind(kind: str, doc: str, *params: Param, rules: Sequence[tuple[str, str, str]] = ()) -> Table:
+    return Table("sweep.schedule", params, entry="option", doc=doc, rules=rules,
                  title=f'`[[sweep.schedule]]` kind = "{kind}"')
 
 
@@ -234,7 +307,7 @@ KIND_OPTIONS: dict[str, Table] = {
     "geometric": _kind("geometric", "β geometrically spaced.",
                        *_betas(DDPM_BETA_START, GEOMETRIC_BETA_END)),
     "cosine": _kind("cosine", "Nichol & Dhariwal 2021, Eq. 17.",
-                    Param("s", Real(low=0, closed="neither", keep_int=True), COSINE_S, "offset s"),
+                    Param("s", _POSITIVE, COSINE_S, "offset s"),
                     Param("max_beta", _IN_UNIT, COSINE_MAX_BETA, "β clipped here")),
     "stride": _kind("stride", "Sub-sequence of the denoiser's training schedule (Song et al. "
                     "2021).", Param("stride", Choice(STRIDES), STRIDES[0],
@@ -242,6 +315,18 @@ KIND_OPTIONS: dict[str, Table] = {
     "explicit": _kind("explicit", "A fixed β list; the sweep's steps are its length.",
                       Param("betas", ListOf(_IN_UNIT), doc="β_1..β_N, each in (0, 1)")),
     "kong2021-fast6": _kind("kong2021-fast6", "The 6-step set of Kong et al. 2021 (from memory)."),
+    "uniform-t": _kind("uniform-t", "Uniform in training time, first to last training step "
+                       "(Lu et al. 2022)."),
+    "logsnr": _kind("logsnr", "Uniform in log-SNR λ (Lu et al. 2022); range: the training "
+                    "schedule's unless given.",
+                    Param("lambda_min", Real(keep_int=True), None, "λ of the noisiest level"),
+                    Param("lambda_max", Real(keep_int=True), None, "λ of the least noisy level")),
+    "karras": _kind("karras", "Karras et al. 2022, Eq. 5 (the EDM time discretisation); σ range: "
+                    "the training schedule's unless given.",
+                    Param("rho", _POSITIVE, KARRAS_RHO, "ρ"),
+                    Param("sigma_min", _POSITIVE, None, "σ of the least noisy level"),
+                    Param("sigma_max", _POSITIVE, None, "σ of the noisiest level"),
+                    rules=[("sigma_min", "<", "sigma_max")]),
 }
 
 
@@ -268,4 +353,6 @@ def named_examples() -> dict[str, NoiseSchedule]:
         "kong2021-fast6 (Kong et al. 2021, from memory)": kong_fast6(),
         "uniform stride 10 of linear T=1000 (Song et al. 2021)": subsequence(train, 10, "uniform"),
         "quadratic stride 10 of linear T=1000 (Song et al. 2021)": subsequence(train, 10, "quadratic"),
+        "logsnr 10 over linear T=1000 (Lu et al. 2022)": logsnr(10, train),
+        "karras 10 over linear T=1000 (Karras et al. 2022)": karras(10, train),
     }

@@ -3,8 +3,8 @@
 * :class:`TorchDenoiser` wraps an ``nn.Module`` noise predictor, ``forward(x_t, features, t) -> ε̂``,
   into the Denoiser contract of :mod:`vocobench.contracts`. It can be driven by the built-in numpy
   samplers (``predict_noise``: one host↔device copy per step) or by its own loop, :meth:`sample`,
-  which runs the same :class:`~vocobench.samplers.StepPlan` coefficients with the state on the
-  device.
+  which runs the same sampler implementation (:func:`vocobench.samplers.execute`) with the state
+  on the device.
 * :class:`TorchVocoder` wraps an ``nn.Module`` that runs its own sampling loop into the Vocoder
   contract.
 
@@ -54,13 +54,18 @@ class TorchDenoiser(TorchModel):
         dtype of the conditioning ``t`` given to the module, ``"float32"`` by default whatever
         ``dtype`` is (float16 cannot tell training steps apart above 2048 and steps by 0.5 above
         512); ``"model"`` means ``dtype``.
+    prediction, noise_law, gamma_theta0 : optional
+        The denoiser contract's declarations (ε/x_0/v output; Gaussian or Gamma noise), default:
+        the module's attributes of those names, else ``"eps"`` and ``"gaussian"``. A module with
+        ``estimate_noise_level(x_t, features)`` makes it available here too.
     """
 
     def __init__(self, model: Any = None, *, sample_rate: int | None = None,
                  frontend: MelFrontEnd | Mapping[str, Any] | None = None,
                  training_schedule: Any = None, conditioning: str | None = None,
                  noise: str = "numpy", loop: str = "torch", t_dtype: str = "float32",
-                 **options: Any) -> None:
+                 prediction: str | None = None, noise_law: str | None = None,
+                 gamma_theta0: float | None = None, **options: Any) -> None:
         super().__init__(model, **options)
         m = self.module
         self.sample_rate = int(module_attr(m, sample_rate, "sample_rate"))
@@ -77,6 +82,13 @@ class TorchDenoiser(TorchModel):
         self.t_dtype = self.dtype if t_dtype == "model" else \
             resolve_dtype(t_dtype, "vocoder.options.t_dtype")
         self._feats: tuple[np.ndarray, Any] | None = None
+        # the denoiser contract's optional declarations, given here or read off the module
+        self.prediction = prediction or getattr(m, "prediction", "eps")
+        self.noise_law = noise_law or getattr(m, "noise_law", "gaussian")
+        self.gamma_theta0 = gamma_theta0 if gamma_theta0 is not None else \
+            getattr(m, "gamma_theta0", None)
+        if callable(getattr(m, "estimate_noise_level", None)):
+            self.estimate_noise_level = self._estimate
 
     def _call(self, x: "torch.Tensor", feats: "torch.Tensor", t: "torch.Tensor") -> "torch.Tensor":
         torch = import_torch()
@@ -108,47 +120,71 @@ class TorchDenoiser(TorchModel):
         return out.double().numpy() if self.dtype == import_torch().float64 else out.float().numpy()
 
     def sample(self, plan: Any, features: np.ndarray, n_samples: int,
-               rng: np.random.Generator) -> np.ndarray:
+               rng: np.random.Generator, trace: list | None = None) -> np.ndarray:
         """Run a :class:`~vocobench.samplers.StepPlan` with the state on the device.
 
         ``features`` is ``(B, n_mels, frames)``; returns ``(B, n_samples)`` (float32, float64 when
-        dtype is). Same update as :func:`vocobench.samplers.run_plan`,
-        ``x ← c_x·x − c_ε·ε̂ + σ·z``, with the state kept in float32 (float64 when dtype is) and
-        cast to ``dtype`` for each call of the module.
+        dtype is). The sampler's update is the one :func:`vocobench.samplers.run_plan` runs
+        (:func:`vocobench.samplers.execute`, one implementation for both), with the state kept in
+        float32 (float64 when dtype is) and cast to ``dtype`` for each call of the module.
+        Adaptive plans run item by item and append the schedule used to ``trace``.
         """
-        if self.loop == "numpy":
-            from .samplers import run_plan
+        from .samplers import Env, execute, run_plan
 
-            return run_plan(plan, self.predict_noise, features, n_samples, rng)
+        estimate = getattr(self, "estimate_noise_level", None)
+        if self.loop == "numpy":
+            return run_plan(plan, self.predict_noise, features, n_samples, rng, estimate=estimate,
+                            trace=trace)
         torch = import_torch()
         state = torch.promote_types(self.dtype, torch.float32)
-        c_x = [float(v) for v in plan.c_x]
-        c_eps = [float(v) for v in plan.c_eps]
-        sigma = [float(v) for v in plan.sigma]
+        feats_all = np.asarray(features)
+        if plan.adaptive and feats_all.shape[0] > 1:
+            return np.concatenate([self.sample(plan, feats_all[b:b + 1], n_samples, rng, trace)
+                                   for b in range(feats_all.shape[0])])
         with self._no_grad():
-            feats = self._features(np.asarray(features))
+            feats = self._features(feats_all)
             batch = feats.shape[0]
-            draw = self._noise(rng, batch, int(n_samples), state)
-            x = draw()
-            for n in range(plan.nfe):
-                t = torch.full((batch,), float(plan.cond[n]), dtype=self.t_dtype, device=self.device)
-                eps = self._call(x.to(self.dtype), feats, t).to(state)
-                x = torch.add(x * c_x[n], eps, alpha=-c_eps[n])    # not in place: ε̂ may alias x
-                if sigma[n] > 0:
-                    x = torch.add(x, draw(), alpha=sigma[n])
-            out = x.to("cpu")
+            normal, gamma = self._noise(rng, batch, int(n_samples), state)
+
+            def call(x: "torch.Tensor", c: float) -> "torch.Tensor":
+                t = torch.full((batch,), c, dtype=self.t_dtype, device=self.device)
+                return self._call(x.to(self.dtype), feats, t).to(state)
+
+            est = None if estimate is None else (lambda x: estimate(x, feats_all))
+            out = execute(plan, Env(call, normal, gamma, est, trace)).to("cpu")
         return out.numpy()
 
-    def _noise(self, rng: np.random.Generator, batch: int, n: int,
-               dtype: "torch.dtype") -> Callable[[], "torch.Tensor"]:
+    def _noise(self, rng: np.random.Generator, batch: int, n: int, dtype: "torch.dtype"
+               ) -> tuple[Callable[[], "torch.Tensor"], Callable[[float], "torch.Tensor"]]:
+        """Standard normal and standardised Gamma draws shaped ``(batch, n)`` on the device. Gamma
+        draws come from numpy (torch's Gamma sampler takes no generator), standardised in float64:
+        the run's Generator, or with ``noise="torch"`` one numpy Generator per item seeded like
+        that item's torch Generator."""
+        from .samplers.noise import standardised
+
         torch = import_torch()
         dev = self.device
+
+        def put(a: np.ndarray) -> "torch.Tensor":
+            return torch.from_numpy(a).to(dtype).to(dev)
+
         if self.noise == "numpy":
-            return lambda: torch.from_numpy(rng.standard_normal((batch, n))).to(dtype).to(dev)
-        gens = [torch.Generator(device=dev).manual_seed(int(rng.integers(SEED_HIGH)))
-                for _ in range(batch)]
-        return lambda: torch.stack([torch.randn(n, generator=g, device=dev, dtype=dtype)
-                                    for g in gens])
+            return (lambda: put(rng.standard_normal((batch, n))),
+                    lambda k: put(standardised(rng.gamma(k, 1.0, (batch, n)), k)))
+        seeds = [int(rng.integers(SEED_HIGH)) for _ in range(batch)]
+        gens = [torch.Generator(device=dev).manual_seed(s) for s in seeds]
+        host = [np.random.default_rng(s) for s in seeds]
+        return (lambda: torch.stack([torch.randn(n, generator=g, device=dev, dtype=dtype)
+                                     for g in gens]),
+                lambda k: put(standardised(np.stack([h.gamma(k, 1.0, n) for h in host]), k)))
+
+    def _estimate(self, x_t: Any, features: Any) -> np.ndarray:
+        """ᾱ̂ per item from the module's ``estimate_noise_level`` (offered as
+        ``estimate_noise_level`` when the module has one)."""
+        with self._no_grad():
+            out = self.module.estimate_noise_level(self._tensor(x_t, self.dtype), self._features(features))
+        return np.asarray(out.detach().to("cpu").double().numpy() if hasattr(out, "detach") else out,
+                          dtype=np.float64)
 
     def describe(self) -> dict[str, Any]:
         return {**super().describe(), "kind": "denoiser", "noise": self.noise, "loop": self.loop,

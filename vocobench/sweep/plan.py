@@ -16,6 +16,7 @@ from ..config import RunConfig
 from ..contracts import Plugin, load_plugin
 from ..errors import InputError
 from ..keys import config_label, directed_columns
+from ..samplers import SAMPLERS, check_law, steps_within
 from ..schedules import NoiseSchedule, ScheduleSpec
 from ..store import FORMAT, dumps
 from ..testset import TestSet, Utterance, load_testset
@@ -123,6 +124,8 @@ def build_grid(cfg: RunConfig, plugin: Plugin) -> list[GridPoint]:
     samplers = cfg.samplers or plugin.samplers()
     offered = plugin.samplers()
     for s in samplers:
+        if plugin.kind == "denoiser" and s in SAMPLERS:
+            check_law(s, plugin.noise_law, cfg.source)     # a clear error for a mismatched law
         if s not in offered:
             raise InputError(f"sampler not offered by this {plugin.kind}; valid: {', '.join(offered)}",
                              source=cfg.source, field="sweep.samplers", value=s)
@@ -130,14 +133,26 @@ def build_grid(cfg: RunConfig, plugin: Plugin) -> list[GridPoint]:
         if name not in samplers:
             raise InputError("options given for a sampler that is not swept", source=cfg.source,
                              field=f"sampler_options.{name}", value=name)
-    grid = []
+    grid: list[GridPoint] = []
+
+    def build(spec: ScheduleSpec, n: int) -> NoiseSchedule:
+        try:
+            return spec.build(n, plugin.training_schedule)
+        except InputError as e:
+            raise InputError(str(e), source=cfg.source) from None
+
     for spec in cfg.schedules:
+        if cfg.nfe and not spec.fixed_length:      # by cost: per sampler, the most steps in budget
+            for budget in cfg.nfe:
+                for s in samplers:
+                    n = steps_within(lambda k: plugin.nfe(build(spec, k), s), budget)
+                    if not any((g.spec, g.sampler, g.steps) == (spec, s, n) for g in grid):
+                        sched = build(spec, n)
+                        grid.append(GridPoint(spec, sched, s, n, plugin.nfe(sched, s)))
+            continue
         steps = [spec.fixed_length] if spec.fixed_length else cfg.steps
         for n in steps:
-            try:
-                sched = spec.build(n, plugin.training_schedule)
-            except InputError as e:
-                raise InputError(str(e), source=cfg.source) from None
+            sched = build(spec, n)
             for s in samplers:
                 grid.append(GridPoint(spec, sched, s, n, plugin.nfe(sched, s)))
     return grid

@@ -129,6 +129,9 @@ class Worker:
                 raise
             except Exception as e:
                 raise ItemFailure(f"vocoder raised {type(e).__name__}: {e}") from None
+            used = getattr(self.synth(job.point), "last_schedule", None)
+            if used is not None:            # adaptive samplers: the schedule this item ran
+                rec["schedule_used"] = used
             y = as_waveform(out)
             rec.update(synth_s=secs, rtf=secs / u.duration_s, ms_per_nfe=1e3 * secs / max(g.nfe, 1),
                        audio_sha=audio_sha(y))
