@@ -31,22 +31,29 @@ def clock() -> Iterator[dict[str, float]]:
     out["wall"], out["cpu"] = time.perf_counter() - t0, time.process_time() - c0
 
 
-def subset(work: Path, n: int) -> Path:
-    """A folder test set holding the first ``n`` demo recordings."""
-    dst = work / f"testset{n}"
+def subset(work: Path, n: int, seconds: float | None = None) -> Path:
+    """A folder test set holding the first ``n`` demo recordings, cut to ``seconds`` if given."""
+    import soundfile as sf
+
+    dst = work / f"testset{n}_{seconds}"
     dst.mkdir(parents=True, exist_ok=True)
     for f in sorted(DEMO_SET.glob("*.wav"))[:n]:
-        shutil.copy(f, dst / f.name)
+        if seconds is None:
+            shutil.copy(f, dst / f.name)
+            continue
+        y, sr = sf.read(str(f), dtype="float32")
+        sf.write(str(dst / f.name), y[: int(seconds * sr)], sr, subtype=sf.info(str(f)).subtype)
     return dst
 
 
 def scenario_config(work: Path, *, utterances: int = 2, steps: Sequence[int] = (6,),
-                    seeds: Sequence[int] = (0, 1), quick: bool = False, **options: Any):
+                    seeds: Sequence[int] = (0, 1), quick: bool = False,
+                    seconds: float | None = None, **options: Any):
     """The scenario's config on a reduced grid; ``options`` go to the model's ``make``."""
     from vocobench.config import load_config
 
     cfg = load_config(CONFIG)
-    cfg.testset = subset(work, utterances)
+    cfg.testset = subset(work, utterances, seconds)
     cfg.steps, cfg.seeds = list(steps), list(seeds)
     cfg.options = {**cfg.options, **(TINY if quick else {}), **options}
     cfg.decide = {}
