@@ -132,7 +132,7 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     if opts.plots and st.columns:
         from .plots import write_plots
 
-        plots = write_plots(st, table, rep / "plots", decision)
+        plots = write_plots(st, table, rep / "plots", decision, svg=opts.svg)
     page_files = []
     if opts.page:
         chosen = [ConfigKey.parse(x).label for x in opts.listen] if opts.listen else \
