@@ -18,7 +18,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from test_report_fixture import make_run  # noqa: E402
 from vocobench.report import ReportOptions, render_report  # noqa: E402
-from vocobench.report.listening import PEAK_DBFS, level_limit  # noqa: E402
+from vocobench.report.listening import PEAK_DBFS, clip_stem, level_limit  # noqa: E402
 
 CHROMIUM = "/usr/bin/chromium"
 EVIL_ID = "<script>alert(1)</script>"
@@ -77,7 +77,8 @@ def test_clips_are_16_bit_and_level_limited(page):
         x, _ = sf.read(str(w))
         # 16-bit quantisation step is 2^-15 (PCM_16 full scale ±1).
         assert np.max(np.abs(x)) == pytest.approx(10 ** (PEAK_DBFS / 20), abs=2 ** -15)
-    loud = run / "report" / "audio" / "u000_c00.wav"     # the loud-noise item, limited like the rest
+    # the loud-noise item (first utterance, linear/ddim/8, seed 0: fixture key), limited like the rest
+    loud = run / "report" / "audio" / f"{clip_stem({'key': 'linear|ddim|8|0|0'})}.wav"
     assert np.max(np.abs(sf.read(str(loud))[0])) < 0.71
 
 

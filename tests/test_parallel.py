@@ -9,7 +9,9 @@ bench/bench_harness.py, not here.
 from __future__ import annotations
 
 import json
+import os
 import shutil
+import subprocess
 import sys
 import textwrap
 from pathlib import Path
@@ -20,7 +22,7 @@ from vocobench.config import parse_config
 from vocobench.errors import InputError
 from vocobench.store import ITEMS, read_jsonl
 from vocobench.sweep import Job, WorkerDied, chunk_jobs, run
-from vocobench.sweep import dask_backend, local, orchestrate      # patched below
+from vocobench.sweep import dask_backend, local, orchestrate, preflight      # patched below
 
 DEMO_SET = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "testset"
 UTTERANCES = ("pier01", "pier03")          # the two shortest-but-one: 2.7 s and 2.4 s
@@ -160,6 +162,7 @@ def test_dead_worker_is_reported_and_finished_items_are_kept(root, tmp_path, mon
     cfg.search_path = [tmp_path]
     out = tmp_path / "out"
     monkeypatch.setattr(local, "MAIN_COMPUTES", False)      # never crash the test process
+    monkeypatch.setattr(preflight, "probe_seconds_per_eval", lambda setup: 1e-3)  # nor its probe
     with pytest.raises(WorkerDied, match="exit code 7"):
         run(cfg, out, progress=False, report=False, workers=2)
     done = read_jsonl(out / ITEMS)
@@ -202,3 +205,55 @@ def test_unreachable_scheduler_is_an_input_error(monkeypatch):
     monkeypatch.setattr(dask_backend, "DASK_CONNECT_TIMEOUT_S", 1.0)
     with pytest.raises(InputError, match="cannot reach the Dask scheduler"):
         dask_backend.run_dask(None, [Job("k", 0, 0, 0)], lambda r: None, "tcp://127.0.0.1:9")
+
+
+CONFIG_TOML = """
+[vocoder]
+target = "vocobench.analytic:AnalyticDenoiser"
+[testset]
+path = "testset"
+[sweep]
+steps = [1, 2]
+samplers = ["ddim"]
+[metrics]
+use = ["stoi"]
+"""
+EXITS_IN_HELPER = """
+import multiprocessing, os
+from vocobench.analytic import AnalyticDenoiser
+
+class Voc(AnalyticDenoiser):
+    def predict_noise(self, x_t, features, t):
+        if multiprocessing.parent_process() is not None:      # a spawned helper, not this process
+            os._exit(1)
+        return super().predict_noise(x_t, features, t)
+"""
+
+
+def test_the_main_guard_hint_only_when_it_applies(tmp_path):
+    """An unguarded script with workers > 1: its spawned helpers run it again and die with exit
+    code 1, and the hint names the guard. A guarded script whose helper exits with code 1 for
+    another reason gets no such hint (Python docs, multiprocessing, "Safe importing of main
+    module")."""
+    (tmp_path / "testset").mkdir()
+    shutil.copy(DEMO_SET / "pier01.wav", tmp_path / "testset" / "pier01.wav")
+    (tmp_path / "cfg.toml").write_text(CONFIG_TOML)
+    (tmp_path / "exits.py").write_text(EXITS_IN_HELPER)
+    body = ("import vocobench as vb\nfrom vocobench.sweep import local\nlocal.MAIN_COMPUTES = False\n"
+            "cfg = vb.load_config('cfg.toml')\n{target}"
+            "vb.run(cfg, 'out', workers=2, report=False, progress=False)\n")
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    results = {}
+    for name, text in (("unguarded", body.format(target="")),
+                       ("guarded", "if __name__ == '__main__':\n" + "".join(
+                           "    " + ln + "\n" for ln in body.format(
+                               target="cfg.target = 'exits:Voc'\n").splitlines()))):
+        (tmp_path / f"{name}.py").write_text(text)
+        shutil.rmtree(tmp_path / "out", ignore_errors=True)
+        p = subprocess.run([sys.executable, f"{name}.py"], cwd=tmp_path, env=env, capture_output=True,
+                           text=True, timeout=300)
+        assert p.returncode != 0
+        results[name] = p.stderr.strip().splitlines()[-1]
+    assert "died (exit code 1)" in results["unguarded"] and "__main__" in results["unguarded"]
+    assert "died (exit code 1)" in results["guarded"] and "__main__" not in results["guarded"]
+    assert "--workers 1" in results["guarded"]

@@ -159,7 +159,8 @@ class Voc:
 
 def test_failures_are_isolated_and_counted(tmp_path):
     _misbehaving_module(tmp_path)
-    cfg = _config(tmp_path, steps=(1, 2, 3, 4, 5, 6), extra="[run]\nitem_timeout_s = 1.0\n")
+    cfg = _config(tmp_path, steps=(1, 2, 3, 4, 5, 6),
+                  extra="[run]\nitem_timeout_s = 1.0\nmax_failed_share = 1.0\n")
     text = cfg.read_text().replace("vocobench.analytic:AnalyticDenoiser", "misbehave:Voc")
     text = text.replace('samplers = ["ddpm"]\n', "")      # an end-to-end vocoder: sampler "native"
     text = text.replace("[metrics]", '[[sweep.schedule]]\nname = "cos"\nkind = "cosine"\n[metrics]')

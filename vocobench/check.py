@@ -52,10 +52,8 @@ def check_target(target: str, options: Mapping[str, Any] | None = None,
                  tolerance_hops: float = DEFAULT_TOLERANCE_HOPS) -> list[Finding]:
     try:
         obj = instantiate(resolve(target, search_path), dict(options or {}), target)
-    except InputError as e:
+    except InputError as e:          # import, attribute, options or a raising constructor
         return [Finding(False, "load", str(e))]
-    except Exception as e:
-        return [Finding(False, "construct", f"{type(e).__name__}: {e}")]
     return check_object(obj, target, tolerance_hops)
 
 

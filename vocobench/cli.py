@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import Any, Callable, Sequence
 
 from . import __version__
-from .errors import InputError
+from .errors import InputError, RunFailed
 
 # The demo scenario ships with the source tree, not with the package: looked up from the current
 # folder (the README runs the demo from the repository root) or given with --scenario.
@@ -32,10 +32,16 @@ def cmd_run(a: argparse.Namespace) -> int:
     from .sweep import run
 
     cfg = load_config(a.config)
-    with showing(choice_from_args(a, strict=False)):
-        out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,
-                  scheduler=a.scheduler)
-    print(f"run directory: {out}")
+    try:
+        with showing(choice_from_args(a, strict=False)):
+            out = run(cfg, a.out, progress=not a.quiet, report=not a.no_report, workers=a.workers,
+                      scheduler=a.scheduler, fresh=a.fresh, retry_failed=a.retry_failed,
+                      dry_run=a.dry_run)
+    except RunFailed as e:
+        print(f"vocobench: run failed: {e}", file=sys.stderr)
+        return 1
+    if not a.dry_run:
+        print(f"run directory: {out}")
     return 0
 
 
@@ -189,6 +195,13 @@ def _run_flags(r: argparse.ArgumentParser, out_default: str | None = None) -> No
     r.add_argument("--workers", type=int, metavar="N", help="parallel synthesis-and-scoring processes")
     r.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
     r.add_argument("--no-report", action="store_true", help="skip tables, plots and listening page")
+    r.add_argument("--fresh", action="store_true",
+                   help="compute every item again (default: reuse items of the same vocoder "
+                        "fingerprint, configuration and utterance)")
+    r.add_argument("--retry-failed", action="store_true",
+                   help="compute items that failed in an earlier run again (default: they stay failed)")
+    r.add_argument("--dry-run", action="store_true",
+                   help="print the plan (items, reuse, estimated cost) and write nothing")
     r.add_argument("-q", "--quiet", action="store_true", help="no progress output")
     add_view_flags(r)
 

@@ -19,6 +19,7 @@ from .params import (Choice, Custom, Integer, ListOf, MapOf, Param, Real, String
 from .schedules import ScheduleSpec, make_spec
 
 SAVE_AUDIO = ("first-seed", "all", "none")
+MAX_FAILED_SHARE = 0.5          # our choice: a sweep with most items failed is not to be trusted
 
 
 def _target(v: Any) -> str:
@@ -32,7 +33,8 @@ VOCODER = Table("vocoder", [
         "the vocoder or denoiser as 'package.module:object' (a path ending in .py before ':' "
         "is read relative to the config file)")),
     Param("options", MapOf(), {}, "keyword arguments for the class or factory"),
-    Param("version", String(), None, "version label; joins the cache keys"),
+    Param("version", String(), None,
+          "version label; keys cached results instead of the hash of the vocoder's code"),
     Param("version_file", String(), None,
           "file (e.g. the checkpoint) whose hash joins the cache keys; relative to the config"),
     Param("search_path", ListOf(String(), nonempty=False), [],
@@ -80,6 +82,9 @@ RUN = Table("run", [
           "seconds before one item is failed; unset: no limit"),
     Param("scheduler", String(), None,
           "Dask scheduler address; unset: local processes"),
+    Param("max_failed_share", Real(0, 1, keep_int=True), MAX_FAILED_SHARE,
+          "the run exits non-zero when more than this share of its items failed (and always "
+          "when every item failed)"),
 ], doc="Execution.")
 CONFIG = Table("", [
     Param("vocoder", VOCODER, doc="the plug-in"),
@@ -130,6 +135,7 @@ class RunConfig:
     workers: int = RUN.field("workers")
     item_timeout_s: float | None = None
     scheduler: str | None = None
+    max_failed_share: float = RUN.field("max_failed_share")
     decide: dict[str, Any] = CONFIG.field("decide")
     source: str = "<config>"
     raw: dict[str, Any] = field(default_factory=dict)
@@ -172,4 +178,5 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
                      output_dir=None if out["dir"] is None else base / out["dir"],
                      save_audio=out["save_audio"], workers=rn["workers"],
                      item_timeout_s=rn["item_timeout_s"], scheduler=rn["scheduler"],
+                     max_failed_share=rn["max_failed_share"],
                      decide=d["decide"], source=source, raw=dict(data))

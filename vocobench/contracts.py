@@ -84,7 +84,14 @@ def instantiate(obj: Any, options: Mapping[str, Any], target: str = "") -> Any:
                          value=sorted(options)) from None
     except ValueError:
         pass
-    return obj(**options)
+    try:
+        return obj(**options)
+    except InputError:
+        raise
+    except Exception as e:          # the user's constructor failed: report its cause on one line
+        raise InputError(f"constructing the target raised {type(e).__name__}: {e}",
+                         field="vocoder.options" if options else "vocoder.target",
+                         value=sorted(options) if options else target) from None
 
 
 # -- the adapter the sweep drives ----------------------------------------------------------

@@ -14,6 +14,7 @@ class InputError(ValueError):
         self.source = source
         self.field = field
         self.value = value
+        message = " / ".join(x.strip() for x in str(message).splitlines() if x.strip())   # one line
         parts = []
         if source:
             parts.append(str(source))
@@ -22,6 +23,10 @@ class InputError(ValueError):
         where = ": ".join(parts)
         shown = "" if value is None else f" (got {value!r})"
         super().__init__(f"{where}: {message}{shown}" if where else f"{message}{shown}")
+
+
+class RunFailed(RuntimeError):
+    """A sweep finished, but too many of its items failed to trust it (CLI exit code 1)."""
 
 
 class ItemFailure(RuntimeError):

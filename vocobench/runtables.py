@@ -6,6 +6,7 @@ left out of every mean and counted per configuration by :func:`failure_counts`.
 """
 from __future__ import annotations
 
+import re
 from typing import Any, Mapping, Sequence
 
 import numpy as np
@@ -78,6 +79,31 @@ def failure_counts(items: pd.DataFrame, configs: Sequence[ConfigKey]) -> pd.Data
     failed = ~ok_mask(items)
     out = pd.DataFrame({"items": lab.value_counts(), "failed": lab[failed].value_counts()})
     return out.reindex([c.label for c in configs]).fillna(0).astype(int)
+
+
+def failure_reason(message: Any) -> str:
+    """The kind of a failure message, for grouping: its text before the first ``": "`` (e.g.
+    ``vocoder raised RuntimeError``), digits replaced by ``#``."""
+    text = str(message or "unknown failure").split(": ", 1)[0].strip()
+    return re.sub(r"\d+", "#", text)
+
+
+def failure_reasons(items: pd.DataFrame) -> pd.DataFrame:
+    """Failed items grouped by :func:`failure_reason`, most frequent first: ``reason``,
+    ``count``, ``first`` (the first message verbatim) and ``configs`` (labels, grid order)."""
+    cols = ["reason", "count", "first", "configs"]
+    if not len(items) or "status" not in items.columns:
+        return pd.DataFrame(columns=cols)
+    bad = items[~ok_mask(items)]
+    msgs = bad["failure"] if "failure" in bad.columns else pd.Series("", index=bad.index)
+    rows: dict[str, dict[str, Any]] = {}
+    for msg, lab in zip(msgs, labels(bad)):
+        r = rows.setdefault(failure_reason(msg), {"count": 0, "first": str(msg or ""), "configs": []})
+        r["count"] += 1
+        if lab not in r["configs"]:
+            r["configs"].append(lab)
+    out = pd.DataFrame([{"reason": k, **v} for k, v in rows.items()], columns=cols)
+    return out.sort_values("count", ascending=False, kind="stable").reset_index(drop=True)
 
 
 def nfe_map(manifest: Mapping[str, Any], items: pd.DataFrame) -> dict[str, int]:

@@ -338,8 +338,11 @@ def make_spec(d: Mapping[str, Any], source: str = "config") -> ScheduleSpec:
     if kind not in KIND_OPTIONS:
         raise InputError(f"unknown schedule kind; valid kinds: {', '.join(KINDS)}", source=source,
                          field="sweep.schedule.kind", value=kind)
+    if not isinstance(name, str) or not name.strip():
+        raise InputError("must be a non-empty string (a label such as \"uniform\")",
+                         source=source, field="sweep.schedule.name", value=name)
     KIND_OPTIONS[kind].parse(d, source, defaults=False)    # builders default to the same constants
-    return ScheduleSpec(str(name), kind, d)
+    return ScheduleSpec(name, kind, d)
 
 
 def named_examples() -> dict[str, NoiseSchedule]:

@@ -17,14 +17,16 @@ import fcntl
 import json
 import math
 import os
+import re
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Mapping
+from typing import Any, Callable, Iterable, Mapping
 
 import numpy as np
 
 from .errors import InputError
+from .textfmt import csv_text
 
 FORMAT = "vocobench-run/1"
 MANIFEST, ITEMS, TIMING = "manifest.json", "items.jsonl", "timing.jsonl"
@@ -62,13 +64,61 @@ def _nan_to_none(o: Any) -> Any:
     return o
 
 
+def current_umask() -> int:
+    """This process's umask (read from ``/proc`` where it can be, so no thread sees it change)."""
+    try:
+        status = Path("/proc/self/status").read_text(encoding="ascii")
+        return int(re.search(r"^Umask:\s*([0-7]+)", status, re.M).group(1), 8)  # type: ignore[union-attr]
+    except (OSError, ValueError, AttributeError):   # no /proc (macOS): set it back at once
+        old = os.umask(0o022)
+        os.umask(old)
+        return old
+
+
+def check_writable(path: str | Path, *, field: str, source: str | None = None) -> None:
+    """Raise :class:`InputError` unless ``path`` is, or can be made, a writable folder: it must
+    not be a file, nor lie below one, nor on a read-only or forbidden filesystem."""
+    p = Path(path)
+    here = p
+    while not here.exists() and here != here.parent:
+        here = here.parent
+    if not here.is_dir():
+        what = "is a file" if here == p else f"lies below a file ({here})"
+        raise InputError(f"must be a folder, but it {what}", source=source, field=field,
+                         value=str(p))
+    if not os.access(here, os.W_OK | os.X_OK):
+        try:
+            ro = bool(os.statvfs(here).f_flag & os.ST_RDONLY)
+        except OSError:
+            ro = False
+        why = "on a read-only file system" if ro else "not writable (permission denied)"
+        raise InputError(f"cannot write there: {here} is {why}", source=source, field=field,
+                         value=str(p))
+
+
+def check_output_file(path: str | Path, *, field: str, source: str | None = "command line") -> None:
+    """Raise :class:`InputError` unless ``path`` can be written as a file (see
+    :func:`check_writable` for its folder)."""
+    p = Path(path)
+    if p.is_dir():
+        raise InputError("must be a file path, but it is a folder", source=source, field=field,
+                         value=str(p))
+    check_writable(p.parent, field=field, source=source)
+
+
 def write_atomic(path: Path, text: str | bytes) -> None:
-    """Write a file so that readers see the old or the new content, never a half-written one."""
+    """Write a file so that readers see the old or the new content, never a half-written one.
+
+    The file gets the usual mode for new files (0666 less the umask), not the 0600 of a
+    temporary file."""
     data = text.encode("utf-8") if isinstance(text, str) else text
     path = Path(path)
+    if path.is_dir():
+        raise InputError("must be a file path, but it is a folder", field="output", value=str(path))
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
+        os.fchmod(fd, 0o666 & ~current_umask())
         with os.fdopen(fd, "wb") as f:
             f.write(data)
             f.flush()
@@ -112,8 +162,10 @@ class Journal:
             self._f = None
 
 
-def read_jsonl(path: Path) -> list[dict[str, Any]]:
-    """Records of a journal; a torn final line (crash mid-write) is ignored."""
+def read_jsonl(path: Path, check: Callable[[dict[str, Any], str], None] | None = None
+               ) -> list[dict[str, Any]]:
+    """Records of a journal; a torn final line (crash mid-write) is ignored. Each record must be
+    a JSON object, and passes ``check(record, "path:line")`` if given."""
     path = Path(path)
     if not path.exists():
         return []
@@ -123,12 +175,101 @@ def read_jsonl(path: Path) -> list[dict[str, Any]]:
         if not line.strip():
             continue
         try:
-            out.append(json.loads(line))
+            rec = json.loads(line)
         except json.JSONDecodeError:
             if i >= len(lines) - 2:          # last line, possibly torn
                 break
             raise InputError("corrupt journal line", source=str(path), field=f"line {i + 1}")
+        if not isinstance(rec, dict):
+            raise InputError("journal line is not a JSON object", source=f"{path}:{i + 1}",
+                             value=_short(rec))
+        if check is not None:
+            check(rec, f"{path}:{i + 1}")
+        out.append(rec)
     return out
+
+
+def _short(v: Any) -> Any:
+    text = repr(v)
+    return v if len(text) <= 60 else text[:57] + "..."
+
+
+def _is_int(v: Any) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_num(v: Any) -> bool:
+    return v is None or v in ("inf", "-inf") or (isinstance(v, (int, float)) and not isinstance(v, bool))
+
+
+def _is_rel(v: Any) -> bool:            # a saved-audio path must stay inside the run directory
+    return v is None or (isinstance(v, str) and not Path(v).is_absolute() and ".." not in Path(v).parts)
+
+
+_TEXT = (lambda v: isinstance(v, str), "a string")
+_RECORD_FIELDS: dict[str, tuple[Callable[[Any], bool], str]] = {
+    "key": _TEXT, "utt_id": _TEXT, "schedule": _TEXT, "sampler": _TEXT,
+    "steps": (_is_int, "an integer"), "seed": (_is_int, "an integer"),
+    "repeat": (_is_int, "an integer"), "nfe": (lambda v: v is None or _is_int(v), "an integer"),
+    "status": (lambda v: v in ("ok", "failed"), '"ok" or "failed"'),
+    "metrics": (lambda v: v is None or isinstance(v, dict), "a table of numbers (or null)"),
+    "tags": (lambda v: v is None or isinstance(v, dict), "a table"),
+    "notes": (lambda v: v is None or isinstance(v, dict), "a table"),
+    "audio_path": (_is_rel, "a path inside the run directory"),
+    **{k: (_is_num, "a number (or null)") for k in (
+        "duration_s", "synth_s", "rtf", "ms_per_nfe", "length_diff", "seconds")},
+}
+ITEM_REQUIRED = ("key", "utt_id", "schedule", "sampler", "steps", "status")
+TIMING_REQUIRED = ("schedule", "sampler", "steps", "utt_id", "repeat")
+
+
+def _record_check(required: tuple[str, ...]) -> Callable[[dict[str, Any], str], None]:
+    def check(rec: dict[str, Any], where: str) -> None:
+        for name in required:
+            if name not in rec:
+                raise InputError("record lacks a required field", source=where, field=name)
+        for name, value in rec.items():
+            ok, what = _RECORD_FIELDS.get(name, (None, ""))
+            if ok is not None and not ok(value):
+                raise InputError(f"must be {what}", source=where, field=name, value=_short(value))
+        for col, value in (rec.get("metrics") or {}).items():
+            if not _is_num(value):
+                raise InputError("must be a number (or null)", source=where,
+                                 field=f"metrics.{col}", value=_short(value))
+    return check
+
+
+check_item, check_timing = _record_check(ITEM_REQUIRED), _record_check(TIMING_REQUIRED)
+
+
+def check_manifest(m: Any, source: str) -> None:
+    """Raise :class:`InputError` naming the field if a (hand-edited) manifest is malformed."""
+    if not isinstance(m, dict):
+        raise InputError("manifest must be a JSON object", source=source, value=_short(m))
+    if m.get("format") != FORMAT:
+        raise InputError(f"unsupported run format; expected {FORMAT}", source=source,
+                         field="format", value=m.get("format"))
+    for name, kind in (("columns", dict), ("grid", list), ("job_keys", list), ("dataset", dict),
+                       ("decide", dict), ("vocoder", dict), ("timing", dict), ("seeds", list),
+                       ("metrics", dict)):
+        if m.get(name) is not None and not isinstance(m[name], kind):
+            raise InputError(f"must be a JSON {'object' if kind is dict else 'list'}",
+                             source=source, field=name, value=_short(m[name]))
+    for i, g in enumerate(m.get("grid") or []):
+        if not (isinstance(g, dict) and isinstance(g.get("schedule"), str)
+                and isinstance(g.get("sampler"), str) and _is_int(g.get("steps"))):
+            raise InputError("grid entry must have schedule, sampler (text) and steps (integer)",
+                             source=source, field=f"grid[{i}]", value=_short(g))
+    for name, spec in (m.get("columns") or {}).items():
+        if not isinstance(spec, dict):
+            raise InputError("must be a JSON object", source=source, field=f"columns.{name}",
+                             value=_short(spec))
+    if not all(isinstance(k, str) for k in m.get("job_keys") or []):
+        raise InputError("job keys must be strings", source=source, field="job_keys")
+    utts = (m.get("dataset") or {}).get("utterances") or []
+    if not isinstance(utts, list) or not all(isinstance(u, dict) for u in utts):
+        raise InputError("must be a list of JSON objects", source=source,
+                         field="dataset.utterances", value=_short(utts))
 
 
 class RunLock:
@@ -140,7 +281,7 @@ class RunLock:
 
     def __enter__(self) -> "RunLock":
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        self._fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        self._fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o666)
         try:
             fcntl.flock(self._fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
@@ -167,6 +308,7 @@ class Run:
     manifest: dict[str, Any]
     items: Any          # pandas.DataFrame, one row per item
     timing: Any         # pandas.DataFrame, one row per timed call
+    ignored: dict[str, int] = field(default_factory=dict)   # records of other grids, dropped
 
     @property
     def metric_columns(self) -> dict[str, dict[str, Any]]:
@@ -198,7 +340,11 @@ def _num(v: Any) -> float:
 
 
 def load_run(run_dir: str | Path):
-    """Read ``manifest.json`` and the journals of a run directory into a :class:`Run`."""
+    """Read ``manifest.json`` and the journals of a run directory into a :class:`Run`.
+
+    Every record is checked (a hand-edited value is an :class:`InputError` naming file, line
+    and field); records of another grid in the same folder are dropped and counted in
+    ``Run.ignored``."""
     import pandas as pd
 
     run_dir = Path(run_dir)
@@ -207,19 +353,20 @@ def load_run(run_dir: str | Path):
         raise InputError("not a vocobench run directory (no manifest.json)", source=str(run_dir))
     try:
         manifest = json.loads(mpath.read_text(encoding="utf-8"))
-    except json.JSONDecodeError as e:
+    except (json.JSONDecodeError, UnicodeDecodeError) as e:
         raise InputError(f"manifest is not valid JSON: {e}", source=str(mpath)) from None
-    if manifest.get("format") != FORMAT:
-        raise InputError(f"unsupported run format; expected {FORMAT}", source=str(mpath),
-                         field="format", value=manifest.get("format"))
-    items = _dedupe(read_jsonl(run_dir / ITEMS))
-    timing = _dedupe_timing(read_jsonl(run_dir / TIMING))
+    check_manifest(manifest, str(mpath))
+    items = _dedupe(read_jsonl(run_dir / ITEMS, check_item))
+    timing = _dedupe_timing(read_jsonl(run_dir / TIMING, check_timing))
     keys = manifest.get("job_keys")
+    ignored = {"items": 0, "timing": 0}
     if keys is not None:            # drop records of an earlier, different sweep in this directory
         wanted = set(keys)
+        ignored = {"items": sum(r.get("key") not in wanted for r in items),
+                   "timing": sum(r.get("key") not in wanted for r in timing)}
         items = [r for r in items if r.get("key") in wanted]
         timing = [r for r in timing if r.get("key") in wanted]
-    return Run(run_dir, manifest, items_frame(items), pd.DataFrame(timing))
+    return Run(run_dir, manifest, items_frame(items), pd.DataFrame(timing), ignored)
 
 
 def _dedupe(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
@@ -240,6 +387,6 @@ def _dedupe_timing(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
 def write_tables(run_dir: Path) -> Run:
     """Render ``items.csv`` and ``timing.csv`` from the journals; returns the loaded run."""
     run = load_run(run_dir)
-    write_atomic(Path(run_dir) / "items.csv", run.items.to_csv(index=False))
-    write_atomic(Path(run_dir) / "timing.csv", run.timing.to_csv(index=False))
+    write_atomic(Path(run_dir) / "items.csv", csv_text(run.items))
+    write_atomic(Path(run_dir) / "timing.csv", csv_text(run.timing))
     return run

@@ -3,6 +3,7 @@
 * numbers: :func:`fmt` (significant digits), :func:`fmt_signed` (fixed decimals, typographic
   minus), :func:`fmt_p` (p-values); intervals ``m [lo, hi]``: :func:`interval`,
   :func:`signed_interval`;
+* CSV: :func:`csv_text` (formula-like text cells neutralised, :func:`csv_cell`);
 * tables: :func:`md_table` (GitHub-flavoured Markdown, every cell escaped by :func:`md_cell`),
   :func:`latex_table` (a plain ``tabular``, every cell escaped by :func:`latex_escape`) and
   :func:`text_table` (fixed width, for a terminal).
@@ -10,6 +11,7 @@
 from __future__ import annotations
 
 import math
+import re
 from typing import Any, Sequence
 
 NA = "–"                 # a missing number in report tables
@@ -135,3 +137,29 @@ def text_table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
     out = [line(header), "  ".join("-" * w for w in widths)]
     out += [line(r) for r in rows]
     return "\n".join(out) + "\n"
+
+
+# ---------------------------------------------------------------- CSV
+
+# OWASP, "CSV Injection": a spreadsheet runs a cell that starts with one of these as a formula;
+# prefix such a cell with a single quote so it is read as text.
+CSV_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_PLAIN_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+
+
+def csv_cell(x: Any) -> Any:
+    """A text cell that a spreadsheet would read as a formula, neutralised with a leading
+    ``'``; numbers, and text that is only a plain number such as ``-0.5``, pass unchanged."""
+    if isinstance(x, str) and x.startswith(CSV_FORMULA_START) and not _PLAIN_NUMBER.fullmatch(x):
+        return "'" + x
+    return x
+
+
+def csv_text(frame: Any) -> str:
+    """A pandas DataFrame as CSV text (no index) with every text cell and header passed
+    through :func:`csv_cell`."""
+    out = frame.rename(columns=csv_cell)
+    for col in out.columns:
+        if out[col].dtype.kind in "OSU":         # object or text columns; numbers untouched
+            out[col] = out[col].map(csv_cell)
+    return out.to_csv(index=False)

@@ -11,7 +11,7 @@ import os
 import platform
 import time
 from dataclasses import dataclass
-from typing import Any, Callable, Iterator
+from typing import Any, Callable, Iterator, Sequence
 
 
 @dataclass(frozen=True)
@@ -22,9 +22,16 @@ class Timing:
 
 
 def time_call(fn: Callable[[], Any], *, warmup: int = 1, repeats: int = 3,
-              sync: Callable[[], None] | None = None) -> Timing:
-    """Call ``fn`` ``warmup`` times (the first one timed apart), then time ``repeats`` calls."""
+              sync: Callable[[], None] | None = None, indices: Sequence[int] | None = None,
+              on_time: Callable[[int, float], None] | None = None) -> Timing:
+    """Call ``fn`` ``warmup`` times (the first one timed apart), then time ``repeats`` calls.
+
+    ``indices``: which repeats to time (default ``range(repeats)``; a resumed block times only
+    the missing ones). ``on_time(index, seconds)`` is called after every timed call, index −1
+    for the first one, so that each measurement can be kept the moment it exists.
+    """
     sync = sync or (lambda: None)
+    note = on_time or (lambda i, s: None)
 
     def once() -> tuple[float, Any]:
         sync()
@@ -34,12 +41,14 @@ def time_call(fn: Callable[[], Any], *, warmup: int = 1, repeats: int = 3,
         return time.perf_counter() - t0, out
 
     first, result = once()
+    note(-1, first)
     for _ in range(max(warmup - 1, 0)):
         once()
     times = []
-    for _ in range(repeats):
+    for i in (range(repeats) if indices is None else indices):
         dt, result = once()
         times.append(dt)
+        note(i, dt)
     return Timing(first, times, result)
 
 

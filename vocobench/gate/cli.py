@@ -27,9 +27,13 @@ def build_policy(a: argparse.Namespace) -> "Policy":
 
 
 def cmd_compare(a: argparse.Namespace) -> int:
+    from ..store import check_output_file
     from .compare import compare_runs, parse_match
     from .outputs import verdict_line, write_outputs
 
+    for flag, path in (("--markdown", a.markdown), ("--json", a.json), ("--junit", a.junit)):
+        if path is not None:                 # checked before any work, so nothing is half-written
+            check_output_file(path, field=flag)
     policy = build_policy(a)
     match = parse_match(a.match_config or []) or None
     if a.ab:

@@ -88,15 +88,19 @@ def build_options(args: argparse.Namespace, run: Any = None):
 def main(args: argparse.Namespace) -> int:
     """Run the report; returns 0, or 2 after printing an input error."""
     from ..keys import directed_columns
-    from ..store import load_run
+    from ..store import RunLock, check_writable, load_run
+    from .publish import check_report_path
     from .render import render_report
 
     try:
         run = load_run(args.run_dir)
         choice = choice_from_args(args, strict=True)
         check_choice(choice, directed_columns(run.manifest.get("columns") or {}))
-        with showing(choice):
-            render_report(run, build_options(args, run), echo=not args.quiet)
+        opts = build_options(args, run)
+        check_writable(args.run_dir, field="RUN_DIR", source="command line")
+        check_report_path(args.run_dir)
+        with RunLock(args.run_dir), showing(choice):     # no sweep writes it meanwhile
+            render_report(run, opts, echo=not args.quiet)
     except InputError as e:
         print(f"vocobench report: error: {e}", file=sys.stderr)
         return 2

@@ -8,6 +8,7 @@ others. Every string that comes from the user (ids, tags, labels, paths) is ``ht
 """
 from __future__ import annotations
 
+import hashlib
 import html
 import math
 from dataclasses import dataclass
@@ -183,11 +184,6 @@ def write_listening_page(run: Any, st: RunStatistics, chosen: Sequence[str], rep
     """
     roles = dict(roles or {})
     run_dir = Path(run.path)
-    audio_dir, spec_dir = report_dir / "audio", report_dir / "spectra"
-    for d, pat in ((audio_dir, "*.wav"), (spec_dir, "*.png")):
-        if d.is_dir():
-            for old in d.glob(pat):
-                old.unlink()
     items = run.items
     lab = labels(items)
     manifest = run.manifest
@@ -206,9 +202,9 @@ def write_listening_page(run: Any, st: RunStatistics, chosen: Sequence[str], rep
         if rp is None:
             ref.missing = "reference recording not found"
         else:
-            _clip(rp, report_dir, f"u{i:03d}_ref", ref, written)
+            _clip(rp, report_dir, reference_stem(utt, entries.get(utt, {})), ref, written)
         cells.append(ref)
-        for j, label in enumerate(chosen):
+        for label in chosen:
             cell = Cell(label + (f" ({roles[label]})" if roles.get(label) else ""))
             sel = items[(items["utt_id"].astype(str) == utt) & (lab == label)]
             ok = sel[sel["status"].astype(str) == "ok"] if "status" in sel.columns else sel
@@ -223,7 +219,7 @@ def write_listening_page(run: Any, st: RunStatistics, chosen: Sequence[str], rep
                 row = (with_audio if len(with_audio) else ok).sort_values("seed").iloc[0]
                 cell.scores = _scores(row, st)
                 if len(with_audio):
-                    _clip(run_dir / str(row["audio_path"]), report_dir, f"u{i:03d}_c{j:02d}", cell, written)
+                    _clip(run_dir / str(row["audio_path"]), report_dir, clip_stem(row), cell, written)
             cells.append(cell)
         sections.append(_section(i, utt, entries.get(utt, {}), cells))
     page = _page(run, st, chosen, sections, len(utts), total)
@@ -233,6 +229,19 @@ def write_listening_page(run: Any, st: RunStatistics, chosen: Sequence[str], rep
     write_atomic(out, page)
     written.append(out)
     return written
+
+
+def clip_stem(row: Mapping[str, Any]) -> str:
+    """File name (no extension) of an item's clip: its job key, unique whatever the ids."""
+    key = row.get("key")
+    text = str(row.get("audio_path") if key is None or key != key else key)     # NaN: no key
+    plain = text.isascii() and text.isalnum()
+    return "item_" + (text if plain else hashlib.sha256(text.encode()).hexdigest()[:24])
+
+
+def reference_stem(utt: str, entry: Mapping[str, Any]) -> str:
+    """File name (no extension) of a reference clip: a hash of the utterance's id and content."""
+    return "ref_" + hashlib.sha256(f"{utt}\0{entry.get('sha256')}".encode()).hexdigest()[:24]
 
 
 def _clip(src: Path, report_dir: Path, stem: str, cell: Cell, written: list[Path]) -> None:

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any, Mapping
 
 from ..params import (Boolean, Integer, ListOf, MapOf, OrOff, Param, Real, String, Table,
@@ -96,3 +97,11 @@ class ReportOptions:
         if column in self.margins:
             return float(self.margins[column]), "set"
         return abs(float(reference_mean)) * self.margin_rel, "default"
+
+
+def options_for(run: Any, options: ReportOptions | None) -> ReportOptions:
+    """``options``, or else the run's ``[decide]`` table (manifest ``decide``)."""
+    if options is not None:
+        return options
+    return ReportOptions.from_mapping(run.manifest.get("decide"),
+                                      source=str(Path(run.path) / "manifest.json"))

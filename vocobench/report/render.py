@@ -22,10 +22,12 @@ from ..errors import InputError
 from ..keys import ConfigKey, is_directed
 from ..stats import BootstrapSettings, RunStatistics, summarise
 from ..store import Run, load_run, write_atomic
-from ..textfmt import latex_table, md_cell, md_table
+from ..textfmt import csv_text, latex_table, md_cell, md_table
+from .basis import Basis, basis
 from .decide import CAUTION, Recommendation, recommend
 from .listening import default_choice, fewest_steps, write_listening_page
-from .options import ReportOptions
+from .options import ReportOptions, options_for
+from .publish import Staging, final_path, report_digest
 from .table import build_table, display_table, worst_utterances
 
 TITLE = "Quality against latency"
@@ -48,14 +50,6 @@ class ReportResult:
     stats: RunStatistics | None = None
     plots: list[Path] = field(default_factory=list)
     page_files: list[Path] = field(default_factory=list)
-
-
-def options_for(run: Any, options: ReportOptions | None) -> ReportOptions:
-    """``options``, or else the run's ``[decide]`` table (manifest ``decide``)."""
-    if options is not None:
-        return options
-    return ReportOptions.from_mapping(run.manifest.get("decide"),
-                                      source=str(Path(run.path) / "manifest.json"))
 
 
 def check_options(opts: ReportOptions, run: Any) -> ConfigKey | None:
@@ -90,15 +84,20 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
                   echo: bool = True) -> ReportResult:
     """Compute statistics of a stored run and write every report file.
 
+    The files are rendered into a staging folder and swapped in at once (see
+    :mod:`vocobench.report.publish`): an interrupted rendering leaves the previous report whole.
+
     Parameters
     ----------
     run_dir : a run directory (``vocobench-run/1``), or that run already loaded.
     options : decision options; default: the run's ``[decide]`` table (manifest ``decide``).
-    echo : print the terminal table, the recommendation and the paths written.
+    echo : print the terminal table, what the report rests on, the recommendation and the
+        paths written.
     """
     run = run_dir if isinstance(run_dir, Run) else load_run(run_dir)
     run_dir = Path(run.path)
     opts = options_for(run, options)
+    digest = report_digest(run, opts)
     ref = check_options(opts, run)
     settings = BootstrapSettings(opts.confidence, opts.resamples, opts.seed, opts.method)
     st = summarise(run, reference=ref, settings=settings, reference_source=opts.source,
@@ -120,20 +119,50 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     else:
         decision = None
         text = "The run has no metric values; only latency is reported.\n\n" + CAUTION + "\n"
+    rests_on = basis(run)
+    note = rests_on.reference_note(st.reference, chosen=ref is not None)
+    if note:
+        text = f"{note}\n\n{text}"
     parts = ReportParts(run_dir, st, table, header, rows, worst_utterances(st, opts.worst), opts.worst,
                         text)
-    rep = run_dir / "report"
-    rep.mkdir(parents=True, exist_ok=True)
+    staging = Staging(run_dir)
+    try:
+        paths, plots, page_files = _write(staging, run, st, opts, parts, decision, rests_on)
+        staging.publish(digest)
+    except BaseException:
+        staging.discard()
+        raise
+    paths = {k: final_path(staging, p) for k, p in paths.items()}
+    paths["summary.md"] = run_dir / "summary.md"
+    result = ReportResult(paths=paths, table=table, recommendation=text, decision=decision, stats=st,
+                          plots=[final_path(staging, p) for p in plots],
+                          page_files=[final_path(staging, p) for p in page_files])
+    if echo:
+        from .terminal import echo_table, echo_text
+
+        print(f"{TITLE} — {run_dir}")
+        echo_table(table, st, decision)
+        print("\n".join(rests_on.lines()))
+        echo_text(text)
+        print("Written:")
+        for p in [*paths.values(), *([run_dir / "report" / "plots"] if plots else [])]:
+            print(f"  {p}")
+    return result
+
+
+def _write(staging: Staging, run: Run, st: RunStatistics, opts: ReportOptions, parts: "ReportParts",
+           decision: Recommendation | None, rests_on: Basis) -> tuple[dict[str, Path], list, list]:
+    """Every report file, into the staging folder; returns (files by name, plots, page files)."""
+    rep = staging.folder
     paths: dict[str, Path] = {}
     for name, writer in WRITERS.items():
         _put(paths, name, rep / name, writer(parts))
-
-    plots = []
+    plots: list[Path] = []
     if opts.plots and st.columns:
         from .plots import write_plots
 
-        plots = write_plots(st, table, rep / "plots", decision, svg=opts.svg)
-    page_files = []
+        plots = write_plots(st, parts.table, rep / "plots", decision, svg=opts.svg)
+    page_files: list[Path] = []
     if opts.page:
         chosen = [ConfigKey.parse(x).label for x in opts.listen] if opts.listen else \
             default_choice(st, decision.recommended if decision else [])
@@ -141,20 +170,10 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
                                           roles=_roles(st, decision))
         paths["listening.html"] = page_files[-1]
         page_files = page_files[:-1]
-    summary = _summary(run, st, opts, _table_md(parts), text, paths, plots)
-    _put(paths, "summary.md", run_dir / "summary.md", summary)
-    result = ReportResult(paths=paths, table=table, recommendation=text, decision=decision,
-                          stats=st, plots=plots, page_files=page_files)
-    if echo:
-        from .terminal import echo_table, echo_text
-
-        print(f"{TITLE} — {run_dir}")
-        echo_table(table, st, decision)
-        echo_text(text)
-        print("Written:")
-        for p in [*paths.values(), *( [rep / "plots"] if plots else [])]:
-            print(f"  {p}")
-    return result
+    finals = {k: final_path(staging, p) for k, p in paths.items()}
+    summary = _summary(run, st, opts, _table_md(parts), parts.text, finals, plots, rests_on)
+    write_atomic(rep / "summary.md", summary)
+    return paths, plots, page_files
 
 
 def _roles(st: RunStatistics, decision: Recommendation | None) -> dict[str, str]:
@@ -226,9 +245,9 @@ def _worst_md(p: ReportParts) -> str:
 # Report files (in RUN_DIR/report, written in this order) → writer; a new format is one entry.
 WRITERS: dict[str, Callable[[ReportParts], str]] = {
     "table.md": lambda p: f"# {TITLE}\n\n{_table_md(p)}\n{md_cell(TABLE_NOTES)}\n",
-    "table.csv": lambda p: p.table.to_csv(index=False),
+    "table.csv": lambda p: csv_text(p.table),
     "table.tex": lambda p: latex_table(p.header, p.rows, caption=f"{TITLE} ({p.run_dir.name})"),
-    "worst_utterances.csv": lambda p: p.worst.to_csv(index=False),
+    "worst_utterances.csv": lambda p: csv_text(p.worst),
     "worst_utterances.md": _worst_md,
     "recommendation.md": lambda p: f"# Recommendation\n\n{_md_text(p.text)}",
 }
@@ -241,7 +260,7 @@ def _variant(v: Any) -> str:
 
 
 def _summary(run: Any, st: RunStatistics, opts: ReportOptions, md_table: str, text: str,
-             paths: Mapping[str, Path], plots: list[Path]) -> str:
+             paths: Mapping[str, Path], plots: list[Path], rests_on: Basis) -> str:
     m = run.manifest
     voc = m.get("vocoder") or {}
     ds = m.get("dataset") or {}
@@ -250,6 +269,8 @@ def _summary(run: Any, st: RunStatistics, opts: ReportOptions, md_table: str, te
     lines = [f"# Quality against latency — {e(Path(run.path).name)}", ""]
     if isinstance(voc, Mapping) and voc:
         bits = [str(voc.get(k)) for k in ("target", "kind", "version") if voc.get(k)]
+        if voc.get("fingerprint"):
+            bits.append(f"fingerprint {voc['fingerprint']} ({voc.get('fingerprint_basis', '')})")
         lines.append(f"- Vocoder: {e(' · '.join(bits))}")
     if m.get("created_utc"):
         lines.append(f"- Created: {e(m['created_utc'])} (vocobench {e(m.get('vocobench_version', '?'))})")
@@ -257,8 +278,9 @@ def _summary(run: Any, st: RunStatistics, opts: ReportOptions, md_table: str, te
     lines.append(f"- Test set: {e(n_utt)} utterances, fingerprint {e(ds.get('fingerprint', '?'))}")
     lines.append(f"- Seeds: {e(', '.join(str(s) for s in m.get('seeds') or []) or '?')}")
     if tm:
-        lines.append(f"- Timing: warm-up {e(tm.get('warmup'))}, repeats {e(tm.get('repeats'))}, "
-                     f"threads {e(tm.get('threads'))}, utterances timed {e(len(tm.get('utterances') or []))}")
+        lines.append(f"- Timing: warm-up {e(tm.get('warmup'))}, threads {e(tm.get('threads'))}, "
+                     f"utterances timed {e(len(tm.get('utterances') or []))}")
+    lines += [f"- {e(x)}" for x in rests_on.lines()]
     lines.append("- Metric variants:")
     for name, var in (m.get("metrics") or {}).items():
         lines.append(f"    - {e(name)}: {e(_variant(var))}")

@@ -1,14 +1,16 @@
 """The sweep: jobs are utterance × schedule × sampler × steps × seed.
 
-:func:`prepare` validates everything (config, plug-in, test set, metrics, grid) before anything
-is written. :func:`run` then holds the directory lock, skips jobs already in the journal (resume),
-runs the quality sweep (each item journalled the moment it finishes) serially, in local processes
-or on Dask, runs the timing phase alone, and renders tables and reports.
+:func:`prepare` validates everything (config, plug-in, test set, metrics, grid) and fingerprints
+the vocoder's code before anything is written. :func:`run` then checks the run directory and its
+journals, says what is reused and what the rest costs, holds the directory lock, runs the
+quality sweep (each item journalled the moment it finishes) serially, in local processes or on
+Dask, runs the timing phase alone (each repeat journalled), and renders tables and reports.
 
 Modules, each importing only those listed after it: ``orchestrate`` (run, back-end choice,
-reports) → ``local`` (spawn pool), ``dask_backend`` → ``remote`` (chunks, worker-process state)
-→ ``timing_phase`` → ``worker`` (one job: synthesis, scoring, timeouts) → ``plan`` (grid, jobs,
-keys, manifest); ``progress`` stands alone. Other packages use only the names below.
+reports, failure verdict) → ``preflight`` (reuse, estimate, plan), ``local`` (spawn pool),
+``dask_backend`` → ``remote`` (chunks, worker-process state) → ``timing_phase`` → ``worker`` (one
+job: synthesis, scoring, timeouts) → ``plan`` (grid, jobs, keys, fingerprint, manifest);
+``progress`` stands alone. Other packages use only the names below.
 """
 from __future__ import annotations
 

@@ -16,11 +16,14 @@ import collections
 import os
 import pickle
 import queue
+import re
 import signal
+import sys
 import time
 import traceback
 from typing import Any, Sequence
 
+from ..errors import InputError
 from ..timing import thread_limit
 from .plan import Job, Setup
 from .remote import RemoteTraceback, Sink, Slot, chunk_jobs, payload, portable
@@ -34,8 +37,14 @@ THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
               "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
 
 
-class WorkerDied(RuntimeError):
-    """A worker process ended abnormally (killed, out of memory, crashed in native code)."""
+class WorkerDied(InputError, RuntimeError):
+    """A worker process ended abnormally (killed, out of memory, crashed in native code).
+
+    An :class:`InputError` on field ``run.workers``: the CLI prints it on one line (exit 2),
+    with the way to see the cause (``--workers 1``); finished items are kept."""
+
+    def __init__(self, message: str, workers: int | None = None, source: str | None = None) -> None:
+        super().__init__(message, source=source, field="run.workers", value=workers)
 
 
 def _local_worker(data: bytes, tasks: Any, results: Any) -> None:
@@ -84,13 +93,13 @@ def run_local(setup: Setup, jobs: Sequence[Job], sink: Sink, workers: int) -> No
                 for job in chunk:
                     sink(own.process(job))      # type: ignore[union-attr]
             return
-        _LocalPool(setup, helpers).run(chunks, own, sink, len(jobs))
+        _LocalPool(setup, helpers, workers).run(chunks, own, sink, len(jobs))
 
 
 class _LocalPool:
     """Spawned helpers fed from a shared queue, ``PREFETCH`` chunks ahead per helper."""
 
-    def __init__(self, setup: Setup, helpers: int) -> None:
+    def __init__(self, setup: Setup, helpers: int, workers: int) -> None:
         import multiprocessing as mp
 
         ctx = mp.get_context("spawn")
@@ -99,6 +108,7 @@ class _LocalPool:
         # not daemonic: a user's vocoder may start processes of its own; stop() always reaps them
         self.procs = [ctx.Process(target=_local_worker, args=(data, self.tasks, self.results),
                                   name=f"vocobench-worker-{i + 1}") for i in range(helpers)]
+        self.source, self.workers = setup.config.source, workers
         self.closed = False                 # sentinels sent: no more chunks for the helpers
         self.can_steal = True
 
@@ -158,7 +168,7 @@ class _LocalPool:
                 if block and not got and any(p.exitcode is not None for p in self.procs):
                     got += self._collect(chunks, sink, block=False)   # last items in flight
                     if not got:
-                        _check_alive(self.procs)
+                        _check_alive(self.procs, self.workers, self.source)
                 return got
             if msg[0] == "item":
                 sink(msg[1])
@@ -194,13 +204,34 @@ class _LocalPool:
         self.results.close()
 
 
-def _check_alive(procs: list[Any]) -> None:
+def _check_alive(procs: list[Any], n: int, source: str | None = None) -> None:
     for p in procs:
         if p.exitcode not in (None, 0):
             how = f"signal {-p.exitcode}" if p.exitcode < 0 else f"exit code {p.exitcode}"
-            hint = (" (a script that runs a sweep with workers > 1 must call it under "
-                    "'if __name__ == \"__main__\":')") if p.exitcode == 1 else ""
+            hint = MAIN_GUARD_HINT if p.exitcode == 1 and main_script_unguarded() else \
+                "; run with --workers 1 to see the cause in this process"
             raise WorkerDied(f"worker process {p.pid} died ({how}){hint}; finished items are "
-                             "kept, re-run to resume")
+                             "kept, re-run to resume", n, source)
     if all(p.exitcode == 0 for p in procs):
-        raise WorkerDied("all worker processes exited with items outstanding")
+        raise WorkerDied("all worker processes exited with items outstanding", n, source)
+
+
+MAIN_GUARD_HINT = ("; a script that runs a sweep with workers > 1 must call it under "
+                   "'if __name__ == \"__main__\":' (spawned workers import the script again)")
+_GUARD = re.compile(r"""__name__\s*==\s*['"]__main__['"]""")
+
+
+def main_script_unguarded() -> bool:
+    """Whether this process runs a script file whose top level lacks the ``__main__`` guard:
+    a spawned worker imports that script again and, unguarded, starts a sweep itself and dies
+    with exit code 1. Otherwise (``vocobench run``, ``python -m``, a guarded script) the hint
+    about the guard would mislead."""
+    main = sys.modules.get("__main__")
+    path = getattr(main, "__file__", None)
+    if not path or getattr(main, "__spec__", None) is not None:
+        return False
+    try:
+        with open(path, encoding="utf-8", errors="replace") as f:
+            return _GUARD.search(f.read()) is None
+    except OSError:
+        return False

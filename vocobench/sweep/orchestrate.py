@@ -1,61 +1,137 @@
-"""Running a sweep: lock, resume, quality sweep (serial, local pool or Dask), timing, reports."""
+"""Running a sweep: checks, lock, resume, quality sweep (serial, local pool or Dask), timing,
+reports, and the verdict on failures."""
 from __future__ import annotations
 
+import json
+import sys
 from pathlib import Path
 from typing import Any, Sequence
 
 from ..config import RunConfig
-from ..errors import InputError
+from ..errors import InputError, RunFailed
 from ..keys import ConfigKey
 from ..params import is_integer
-from ..store import ITEMS, MANIFEST, TIMING, Journal, RunLock, dumps, read_jsonl, write_atomic, write_tables
+from ..runtables import failure_reasons, ok_mask
+from ..store import (ITEMS, MANIFEST, TIMING, Journal, Run, RunLock, check_item, check_timing,
+                     check_writable, dumps, read_jsonl, write_atomic, write_tables)
 from ..timing import thread_limit
 from .dask_backend import run_dask
 from .local import run_local
 from .plan import Job, Setup, prepare
+from .preflight import estimate, hms, plan_text, reuse_plan
 from .progress import Progress, say
 from .remote import Record, Sink
-from .timing_phase import run_timing, timing_plan
+from .timing_phase import missing_repeats, run_timing, timing_done, timing_plan
 from .worker import Worker
 
 
 def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = True,
-        report: bool = True, workers: int | None = None, scheduler: str | None = None) -> Path:
+        report: bool = True, workers: int | None = None, scheduler: str | None = None,
+        fresh: bool = False, retry_failed: bool = False, dry_run: bool = False) -> Path:
     """Run (or resume) a sweep; returns the run directory.
 
-    Holds the directory lock, skips jobs already in the journal, runs the quality sweep (each
-    item journalled the moment it finishes), then the timing phase alone, then the reports.
+    Checks everything first (config, plug-in, test set, the run directory and its journals),
+    says what is reused and what the rest will cost, then holds the directory lock, runs the
+    quality sweep (each item journalled the moment it finishes), the timing phase alone (each
+    measurement journalled), writes the tables and renders the reports unless they are up to
+    date. ``fresh``: compute every item again; ``retry_failed``: compute failed items again
+    (otherwise they stay failed); ``dry_run``: print the plan and estimate, write nothing.
+    Raises :class:`~vocobench.errors.RunFailed` (after writing everything) when every item
+    failed or more than ``[run] max_failed_share`` of them did.
     """
     n_workers = cfg.workers if workers is None else workers
     if not is_integer(n_workers) or n_workers < 1:
         raise InputError("must be a positive integer", field="workers", value=n_workers)
     setup = prepare(cfg, out_dir)
     out = setup.out_dir
+    check_writable(out, field="--out" if out_dir is not None else "output.dir", source=cfg.source)
+    records = read_jsonl(out / ITEMS, check_item)
+    plan = reuse_plan(setup, records, fresh=fresh, retry_failed=retry_failed)
+    tdone = {} if fresh else timing_done(read_jsonl(out / TIMING, check_timing))
+    mine = {j.key for j in setup.jobs}
+    est = estimate(setup, plan.todo, n_workers, tdone, [r for r in records if r["key"] in mine])
+    if dry_run:
+        print(plan_text(setup, plan, est))
+        return out
+    for line in [*plan.lines(setup), est.line()]:
+        say(progress, line)
+    if est.long:
+        print(f"vocobench: warning: this grid is estimated to take {hms(est.seconds or 0)}, over "
+              "an hour; Ctrl-C stops it (finished items are kept), --dry-run shows the plan",
+              file=sys.stderr)
     with RunLock(out):
-        write_atomic(out / MANIFEST, dumps(setup.manifest()) + "\n")
+        write_atomic(out / MANIFEST, _manifest_text(setup, out))
         journal = Journal(out / ITEMS)
-        status = {r.get("key"): r.get("status") for r in read_jsonl(out / ITEMS)}
-        todo = [j for j in setup.jobs if j.key not in status]
-        say(progress, f"{len(setup.jobs)} items ({len(setup.jobs) - len(todo)} already done), "
-                      f"{len(setup.grid)} configurations, {len(setup.testset.utterances)} utterances")
-        bar = Progress(len(todo), progress)
-        status.update(run_jobs(setup, todo, journal, bar, n_workers, scheduler or cfg.scheduler))
-        journal.close()
-        tj = Journal(out / TIMING)
-        tdone = {r.get("key") for r in read_jsonl(out / TIMING)}
-        failed = {k for k, v in status.items() if v == "failed"}
-        tjobs = [(j, u) for j, u in timing_plan(setup) if j.key not in tdone | failed]
+        try:
+            status = {**plan.status, **run_jobs(setup, plan.todo, journal, Progress(len(plan.todo), progress),
+                                                n_workers, scheduler or cfg.scheduler)}
+        finally:
+            journal.close()
+        tjobs = [(j, u) for j, u in timing_plan(setup) if status.get(j.key) != "failed"
+                 and any(missing_repeats(setup, tdone, j.key))]
         tbar = Progress(len(tjobs), progress, label="timing")
-        run_timing(setup, tjobs, tj, lambda s: tbar.step(s) if s.startswith("timed") else say(progress, s))
-        tj.close()
-        changed = bool(todo or tjobs) or not (out / "summary.md").exists()
+        tj = Journal(out / TIMING)
+        try:
+            run_timing(setup, tjobs, tj, lambda s: tbar.step(s) if s.startswith("timed")
+                       else say(progress, s), done=tdone)
+        finally:
+            tj.close()
         stored = write_tables(out)
-        if report and changed:
-            render(stored, echo=progress)
-        elif report:
-            say(progress, "nothing new to compute; reports are up to date "
-                          f"(re-render with: vocobench report {out})")
+        verdict = failure_verdict(stored, cfg.max_failed_share)
+        if report:
+            _report(stored, progress)
+    if verdict:
+        raise RunFailed(verdict)
     return out
+
+
+def _manifest_text(setup: Setup, out: Path) -> str:
+    """The manifest; an unchanged one keeps its creation time (so its report stays current)."""
+    m = json.loads(dumps(setup.manifest()))
+    try:
+        old = json.loads((out / MANIFEST).read_text(encoding="utf-8"))
+        if isinstance(old, dict) and {**old, "created_utc": m["created_utc"]} == m:
+            m["created_utc"] = old["created_utc"]
+    except (OSError, ValueError):
+        pass
+    return dumps(m) + "\n"
+
+
+def failure_verdict(run: Run, max_share: float) -> str | None:
+    """Why the run is not to be trusted, or None: every item failed, or more than ``max_share``
+    of them; names the most common reason with its first message."""
+    items = run.items
+    if not len(items):
+        return None
+    n, bad = len(items), int((~ok_mask(items)).sum())
+    if bad == n:
+        why = f"every item failed ({n} of {n})"
+    elif bad / n > max_share:
+        why = (f"{bad} of {n} items failed ({100 * bad / n:.0f} %, more than "
+               f"run.max_failed_share = {max_share:g})")
+    else:
+        return None
+    top = failure_reasons(items).iloc[0]
+    return (f"{why}; most common reason: {top['reason']} ({top['count']} items), first message: "
+            f"{top['first']} (all reasons: {Path(run.path) / 'items.csv'}, column failure)")
+
+
+def _report(stored: Run, progress: bool) -> None:
+    if not len(stored.items):
+        say(progress, "no report: the run has no items")
+        return
+    try:
+        from ..report.basis import basis_lines
+        from ..report.publish import report_is_current
+    except ImportError:          # decision stage not installed in this build
+        return
+    if report_is_current(stored):
+        for line in basis_lines(stored):
+            say(progress, line)
+        say(progress, "reports are up to date: they were built from exactly these items and "
+                      f"options (re-render with: vocobench report {stored.path})")
+    else:
+        render(stored, echo=progress)
 
 
 def run_jobs(setup: Setup, jobs: list[Job], journal: Journal, bar: Progress, workers: int,

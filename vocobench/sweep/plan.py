@@ -6,6 +6,8 @@ Jobs are utterance × schedule × sampler × steps × seed. :func:`prepare` vali
 from __future__ import annotations
 
 import hashlib
+import inspect
+import sys
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -13,10 +15,11 @@ from typing import Any
 
 from .. import __version__
 from ..config import RunConfig
-from ..contracts import Plugin, load_plugin
+from ..contracts import Plugin, instantiate, resolve
 from ..errors import InputError
+from ..fingerprint import code_fingerprint, file_digest, option_files_fingerprint
 from ..keys import config_label, directed_columns
-from ..samplers import SAMPLERS, check_law, steps_within
+from ..samplers import SAMPLER_OPTIONS, SAMPLERS, check_law, steps_within
 from ..schedules import NoiseSchedule, ScheduleSpec
 from ..store import FORMAT, dumps
 from ..testset import TestSet, Utterance, load_testset
@@ -52,6 +55,16 @@ class Job:
     seed: int
 
 
+@dataclass(frozen=True)
+class Identity:
+    """What the vocoder's results are keyed by besides its description: a ``fingerprint`` of its
+    code and option files (or of the config's ``version``, which overrides the code), and in
+    words what it covers (``basis``)."""
+
+    fingerprint: str
+    basis: str
+
+
 @dataclass
 class Setup:
     """A validated run: config, loaded plug-in, test set, metrics, length policy, grid and jobs."""
@@ -63,6 +76,7 @@ class Setup:
     policy: Any
     grid: list[GridPoint]
     out_dir: Path
+    identity: Identity
     jobs: list[Job] = field(default_factory=list)
 
     def manifest(self) -> dict[str, Any]:
@@ -76,7 +90,9 @@ class Setup:
             "format": FORMAT, "vocobench_version": __version__,
             "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
             "config_source": cfg.source, "config": cfg.raw,
-            "vocoder": self.plugin.describe(), "frontend": self.plugin.frontend.to_dict(),
+            "vocoder": {**self.plugin.describe(), "fingerprint": self.identity.fingerprint,
+                        "fingerprint_basis": self.identity.basis},
+            "frontend": self.plugin.frontend.to_dict(),
             "frontend_fingerprint": self.plugin.frontend.fingerprint(),
             "metrics": {m.name: m.variant(self.plugin.sample_rate) for m in self.metrics}, "columns": cols,
             "length_policy": self.policy.describe(), "dataset": self.testset.describe(),
@@ -133,6 +149,7 @@ def build_grid(cfg: RunConfig, plugin: Plugin) -> list[GridPoint]:
         if name not in samplers:
             raise InputError("options given for a sampler that is not swept", source=cfg.source,
                              field=f"sampler_options.{name}", value=name)
+        _check_sampler_options(cfg, plugin, name)
     grid: list[GridPoint] = []
 
     def build(spec: ScheduleSpec, n: int) -> NoiseSchedule:
@@ -167,20 +184,89 @@ def job_key(shared: str, point: str, utt: Utterance, seed: int) -> str:
     return h.hexdigest()[:24]
 
 
-def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet | None = None) -> Setup:
-    """Validate everything and build the job list; writes nothing."""
-    from ..metrics import DEFAULT_METRICS, LengthPolicy, build_metrics
-
+def _check_sampler_options(cfg: RunConfig, plugin: Plugin, name: str) -> None:
+    """``[sampler_options.NAME]`` checked now (names, types, ranges), not item by item later."""
+    opts = cfg.sampler_options[name]
+    if plugin.kind == "denoiser":
+        SAMPLER_OPTIONS[name].parse(opts, cfg.source)
+        return
+    if not getattr(plugin.obj, "samplers", None):
+        raise InputError("this vocoder declares no samplers, so it takes no sampler options",
+                         source=cfg.source, field=f"sampler_options.{name}", value=sorted(opts))
     try:
-        plugin = load_plugin(cfg.target, cfg.options, cfg.search_path)
+        sig = inspect.signature(plugin.obj)
+    except (TypeError, ValueError):
+        return
+    try:
+        sig.bind(None, None, None, sampler=name, **opts)
+    except TypeError as e:
+        raise InputError(f"the vocoder's call does not take these options: {e}", source=cfg.source,
+                         field=f"sampler_options.{name}", value=sorted(opts)) from None
+
+
+def _code_of(obj: Any) -> tuple[str, str] | None:
+    """(fingerprint, words) of the code behind ``obj``: its module and, inside a package, the
+    package's modules (see :func:`vocobench.fingerprint.code_fingerprint`); None without source."""
+    try:
+        fp = code_fingerprint(obj)
+    except InputError:                  # a built-in, or an object made without a source file
+        return None
+    owner = obj if inspect.ismodule(obj) or inspect.isclass(obj) or inspect.isroutine(obj) else type(obj)
+    module = inspect.getmodule(owner)
+    top = sys.modules.get((getattr(module, "__name__", "") or "").split(".")[0])
+    if str(getattr(top, "__file__", "")).endswith("__init__.py"):
+        return fp, f"code of package {top.__name__}"            # type: ignore[union-attr]
+    return fp, f"code of module {Path(str(getattr(module, '__file__', '?'))).name}"
+
+
+def vocoder_identity(cfg: RunConfig, plugin: Plugin, target: Any) -> Identity:
+    """The fingerprint that joins every job key: the config's ``version`` if given (it overrides
+    the code), else the source of the target's module and package, of the vocoder object's
+    module and package if they differ, and the content of every option value naming a file."""
+    if cfg.version:
+        fp = hashlib.sha256(f"version\0{plugin.version}".encode()).hexdigest()[:16]
+        return Identity(fp, f"version {cfg.version!r} from the config (code not hashed)")
+    parts: list[str] = []
+    said: list[str] = []
+    for obj in (target, plugin.obj):
+        code = _code_of(obj)
+        if code and code[0] not in parts:
+            parts.append(code[0])
+            said.append(code[1])
+    files = option_files_fingerprint(cfg.options)
+    if files:
+        parts.append(dumps(files))
+        said.append("option file" + ("s " if len(files) > 1 else " ") + ", ".join(files))
+    if plugin.version:
+        parts.append(f"version\0{plugin.version}")
+        said.append(f"version {plugin.version!r}")
+    fp = hashlib.sha256("\n".join(parts).encode()).hexdigest()[:16]
+    return Identity(fp, "; ".join(said) or "no source file found (built-in object)")
+
+
+def load_target(cfg: RunConfig) -> tuple[Plugin, Any]:
+    """The user's object loaded, constructed and wrapped, and the object the target names."""
+    try:
+        target = resolve(cfg.target, cfg.search_path)
+        plugin = Plugin.wrap(instantiate(target, cfg.options, cfg.target), cfg.target, cfg.options)
     except InputError as e:
         if e.source:
             raise
         raise InputError(str(e), source=cfg.source) from None
+    return plugin, target
+
+
+def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet | None = None,
+            identity: Identity | None = None) -> Setup:
+    """Validate everything and build the job list; writes nothing. ``identity``: the vocoder's
+    fingerprint as the main process computed it (worker processes pass it on)."""
+    from ..metrics import DEFAULT_METRICS, LengthPolicy, build_metrics
+
+    plugin, target = load_target(cfg)
     if cfg.version:
         plugin.version = cfg.version
     if cfg.version_file:
-        digest = hashlib.sha256(cfg.version_file.read_bytes()).hexdigest()[:16]
+        digest = file_digest(cfg.version_file)[:16]
         plugin.version = f"{plugin.version or ''}+sha256:{digest}"
     if plugin.frontend.sample_rate != plugin.sample_rate:
         raise InputError("front-end sample rate differs from the vocoder's sample rate",
@@ -192,8 +278,9 @@ def prepare(cfg: RunConfig, out_dir: str | Path | None = None, testset: TestSet 
     grid = build_grid(cfg, plugin)
     _check_decide(cfg, metrics)
     out = Path(out_dir) if out_dir else (cfg.output_dir or Path("reports") / "run")
-    setup = Setup(cfg, plugin, ts, metrics, policy, grid, out)
-    ids = {"vocoder": plugin.describe(), "version": __version__,
+    ident = identity or vocoder_identity(cfg, plugin, target)
+    setup = Setup(cfg, plugin, ts, metrics, policy, grid, out, ident)
+    ids = {"vocoder": plugin.describe(), "version": __version__, "fingerprint": ident.fingerprint,
            "metrics": {m.name: m.variant(plugin.sample_rate) for m in metrics},
            "length": policy.describe()}
     shared = dumps(ids)

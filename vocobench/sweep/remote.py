@@ -19,12 +19,12 @@ from typing import Any, Callable, ContextManager, Sequence
 from ..config import RunConfig
 from ..testset import TestSet
 from ..timing import thread_limit
-from .plan import Job, Setup, prepare
+from .plan import Identity, Job, Setup, prepare
 from .worker import Worker
 
 Record = dict[str, Any]
 Sink = Callable[[Record], None]
-Payload = tuple[RunConfig, str, TestSet]
+Payload = tuple[RunConfig, str, TestSet, Identity]
 
 
 def chunk_jobs(jobs: Sequence[Job], workers: int, max_size: int | None = None) -> list[list[Job]]:
@@ -68,18 +68,20 @@ def _absolute(cfg: RunConfig) -> RunConfig:
 
 def payload(setup: Setup) -> Payload:
     """What a worker needs to rebuild the Setup, minus work the main process already did: the
-    version file's hash (carried as the resolved version) and the ``[decide]`` check."""
+    version file's hash (carried as the resolved version), the code fingerprint (carried as
+    the identity, so a file edited during the sweep cannot split the keys) and the
+    ``[decide]`` check."""
     cfg = dataclasses.replace(_absolute(setup.config), version=setup.plugin.version,
                               version_file=None, decide={})
-    return cfg, str(Path(setup.out_dir).resolve()), setup.testset
+    return cfg, str(Path(setup.out_dir).resolve()), setup.testset, setup.identity
 
 
 class Slot:
     """One worker's state: the rebuilt Setup, its ``Worker`` (with the LRU) and its job keys."""
 
     def __init__(self, data: Payload) -> None:
-        cfg, out_dir, testset = data
-        self.setup = prepare(cfg, out_dir, testset=testset)
+        cfg, out_dir, testset, identity = data
+        self.setup = prepare(cfg, out_dir, testset=testset, identity=identity)
         self.worker = Worker(self.setup)
         self.keys = {j.key for j in self.setup.jobs}
 

@@ -1,7 +1,7 @@
 """The timing phase: after the quality sweep, alone, threads limited, warm-up then repeats."""
 from __future__ import annotations
 
-from typing import Callable
+from typing import Any, Callable, Mapping
 
 from ..contracts import Plugin
 from ..store import Journal
@@ -19,34 +19,59 @@ def timing_plan(setup: Setup) -> list[tuple[Job, Utterance]]:
             if j.seed == seed and setup.testset.utterances[j.utt].id in chosen]
 
 
+def timing_done(records: list[Mapping[str, Any]]) -> dict[str, set[int]]:
+    """Repeats already journalled per key (−1: the first call), from timing records."""
+    out: dict[str, set[int]] = {}
+    for r in records:
+        if r.get("key"):
+            out.setdefault(str(r["key"]), set()).add(int(r["repeat"]))
+    return out
+
+
+def missing_repeats(setup: Setup, done: Mapping[str, set[int]], key: str) -> tuple[bool, list[int]]:
+    """Whether the first call of ``key``'s timing block is still to be kept, and which repeats
+    are missing (``done``: repeats already journalled per key, −1 the first call)."""
+    have = done.get(key, set())
+    return -1 not in have, [r for r in range(setup.config.timing.repeats) if r not in have]
+
+
 def run_timing(setup: Setup, jobs: list[tuple[Job, Utterance]], journal: Journal,
-               progress: Callable[[str], None]) -> None:
-    """Timing phase: alone, threads limited, warm-up then repeats."""
+               progress: Callable[[str], None], done: Mapping[str, set[int]] | None = None) -> None:
+    """Timing phase: alone, threads limited, warm-up then the repeats each block still misses
+    (``done``: repeats already journalled per key). Every measurement is journalled the moment
+    it is taken, so a kill inside a block loses at most the call in flight."""
     cfg = setup.config
+    done = done or {}
     worker = Worker(setup, cache_size=1)
     with thread_limit(cfg.timing.threads, setup.plugin.obj):
         for job, u in jobs:
+            first, missing = missing_repeats(setup, done, job.key)
+            if not first and not missing:
+                continue
             g = setup.grid[job.point]
             feats = worker.utterance(job.utt)["feats"]
             fn = worker.synth(job.point)
             reset = getattr(setup.plugin.obj, "reset_peak_memory", None)
             if callable(reset):
                 reset()
-            calls = cfg.timing.warmup + cfg.timing.repeats
+            base = {"key": job.key, "schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps,
+                    "nfe": g.nfe, "utt_id": u.id, "duration_s": u.duration_s}
+
+            def keep(rep: int, secs: float) -> None:
+                if rep >= 0 or first:
+                    journal.append({**base, "peak_mem_bytes": peak_memory(setup.plugin),
+                                    "repeat": rep, "seconds": secs, "rtf": secs / u.duration_s,
+                                    "ms_per_nfe": 1e3 * secs / max(g.nfe, 1)})
+
+            calls = cfg.timing.warmup + len(missing)
             try:
                 with deadline(cfg.item_timeout_s and cfg.item_timeout_s * calls):
-                    t = time_call(lambda: fn(feats, g.schedule, item_rng(job.seed, u)),
-                                  warmup=cfg.timing.warmup, repeats=cfg.timing.repeats,
-                                  sync=setup.plugin.synchronize)
+                    time_call(lambda: fn(feats, g.schedule, item_rng(job.seed, u)),
+                              warmup=cfg.timing.warmup, indices=missing,
+                              sync=setup.plugin.synchronize, on_time=keep)
             except Exception as e:
                 progress(f"timing failed for {g.label} on {u.id}: {type(e).__name__}: {e}")
                 continue
-            base = {"key": job.key, "schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps,
-                    "nfe": g.nfe, "utt_id": u.id, "duration_s": u.duration_s,
-                    "peak_mem_bytes": peak_memory(setup.plugin)}
-            for rep, secs in [(-1, t.first_s)] + list(enumerate(t.seconds)):
-                journal.append({**base, "repeat": rep, "seconds": secs, "rtf": secs / u.duration_s,
-                                "ms_per_nfe": 1e3 * secs / max(g.nfe, 1)})
             progress(f"timed {g.label} on {u.id}")
 
 

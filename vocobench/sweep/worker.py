@@ -35,11 +35,6 @@ def load_utterance(setup: Setup, i: int) -> tuple[np.ndarray, np.ndarray]:
     return ref, feats
 
 
-def safe_name(name: str) -> str:
-    """``name`` with every character other than letters, digits and ``-_.`` replaced by ``_``."""
-    return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
-
-
 class deadline:
     """Raise :class:`ItemFailure` if the body runs past ``seconds`` (SIGALRM; main thread only)."""
 
@@ -137,9 +132,8 @@ class Worker:
                        audio_sha=audio_sha(y))
             ref, est, info = self.s.policy.apply(entry["ref"], y, self.s.plugin.frontend.hop_length)
             rec["length_diff"] = info.get("length_diff")
-            if self._save(job):
-                name = f"{safe_name(g.spec.name)}__{g.sampler}__{g.steps}__s{job.seed}.flac"
-                rel = Path("audio") / safe_name(u.id) / name
+            if self._save(job):          # named by the job key: unique whatever the ids
+                rel = Path("audio") / f"{job.key}.flac"
                 save_audio(self.s.out_dir / rel, y, self.s.plugin.sample_rate)
                 rec["audio_path"] = str(rel)
             self._score(rec, self.states(job.utt), est)
