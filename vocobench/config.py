@@ -67,7 +67,10 @@ METRICS = Table("metrics", [
 ], doc="Scoring.")
 TIMING = Table("timing", [
     Param("warmup", Integer(low=0), 1, "untimed calls before timing (the first is reported apart)"),
-    Param("repeats", Integer(low=1), 3, "timed calls per configuration and utterance"),
+    Param("repeats", Integer(low=1), 3, "most timed calls per configuration and utterance (the "
+          "sweep's own uncontended calls count)"),
+    Param("rel_width", Real(low=0, keep_int=True), 0.05, "stop repeating once the median's 95 % "
+          "interval is within ± this fraction of it (0: always all repeats)"),
     Param("utterances", Integer(low=0), 2, "timed on the first N utterances; 0 = all"),
     Param("threads", Integer(low=1), 1, "CPU thread limit while timing"),
 ], doc="The latency phase, run after the sweep, alone.")
@@ -109,6 +112,7 @@ class TimingConfig:
     repeats: int
     utterances: int               # timed on the first N utterances; 0 = all
     threads: int
+    rel_width: float = 0.05       # sequential stopping: median's 95 % interval within ± this
 
 
 @dataclass
