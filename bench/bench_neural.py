@@ -24,7 +24,6 @@ from __future__ import annotations
 import argparse
 import sys
 import tempfile
-import time
 from pathlib import Path
 from typing import Any
 
@@ -83,7 +82,7 @@ def measure_whole(work: Path, cfg) -> dict[str, Any]:
     with nc.clock() as t:
         out = run(cfg, work / "run", progress=False, report=False)
     r = load_run(out)
-    threads = int(r.manifest.get("sweep", {}).get("threads", 1) or 1)
+    threads = 1                               # the sweep's items run with one thread
     nc.bare_loop(warm, threads=threads)
     bare = nc.bare_loop(cfg, threads=threads)
     synth = float(r.items["synth_s"].sum())

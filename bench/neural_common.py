@@ -76,23 +76,23 @@ def plugin_for(cfg):
     return load_plugin(cfg.target, cfg.options, cfg.search_path)
 
 
-def bare_loop(cfg, threads: int | None = None) -> dict[str, Any]:
+def bare_loop(cfg, threads: int = 1, testset: Any = None,
+              make_plugin: Callable[[Any], Any] | None = None) -> dict[str, Any]:
     """The sweep's items with no harness: build the model, then per utterance compute the features
-    and the metrics' reference analysis, and per item synthesise, equalise lengths and score.
+    and the metrics' reference analysis, and per item synthesise, equalise lengths and score, with
+    ``threads`` BLAS and plug-in threads (the harness's sweep runs with one).
 
-    ``threads``: torch intra-op threads (default: torch's own default, what a plain script gets).
+    ``testset``: default the config's; ``make_plugin(cfg)``: default :func:`plugin_for`.
     """
     import numpy as np
-    import torch
 
     from vocobench.metrics import LengthPolicy, build_metrics
     from vocobench.sweep import item_rng
     from vocobench.testset import load_audio, load_testset
+    from vocobench.timing import thread_limit
 
-    if threads is not None:
-        torch.set_num_threads(threads)
     with clock() as t:
-        plugin = plugin_for(cfg)
+        plugin = (make_plugin or plugin_for)(cfg)
         fe, sr = plugin.frontend, plugin.sample_rate
         metrics = build_metrics(cfg.metrics, cfg.metric_options)
         policy = LengthPolicy(mode=cfg.length_mode, tolerance_hops=cfg.length_tolerance_hops)
@@ -100,20 +100,20 @@ def bare_loop(cfg, threads: int | None = None) -> dict[str, Any]:
         synth = {s: plugin.synthesizer(s, cfg.sampler_options.get(s)) for s in samplers}
         points = [(spec.build(n, plugin.training_schedule), s)
                   for spec in cfg.schedules for n in cfg.steps for s in samplers]
-        hashes, n = [], 0
-        for u in load_testset(cfg.testset).utterances:
-            ref = load_audio(u, sr)
-            feats = fe(ref)
-            states = [m.prepare(ref, sr) for m in metrics]
-            for sched, s in points:
-                for seed in cfg.seeds:
-                    y = np.asarray(synth[s](feats, sched, item_rng(seed, u)), dtype=np.float32)
-                    hashes.append(y.tobytes())
-                    _, est, _ = policy.apply(ref, y, fe.hop_length)
-                    for m, st in zip(metrics, states):
-                        m.score(st, est, sr)
-                    n += 1
-    return {**t, "items": n, "threads": torch.get_num_threads()}
+        n = 0
+        with thread_limit(threads, plugin.obj):
+            for u in (testset or load_testset(cfg.testset)).utterances:
+                ref = load_audio(u, sr)
+                feats = fe(ref)
+                states = [m.prepare(ref, sr) for m in metrics]
+                for sched, s in points:
+                    for seed in cfg.seeds:
+                        y = np.asarray(synth[s](feats, sched, item_rng(seed, u)), dtype=np.float32)
+                        _, est, _ = policy.apply(ref, y, fe.hop_length)
+                        for m, st in zip(metrics, states):
+                            m.score(st, est, sr)
+                        n += 1
+    return {**t, "items": n, "threads": threads}
 
 
 def seed_batch(den: Any, plan: Any, feats: Any, n_samples: int, rngs: list) -> Any:

@@ -68,3 +68,32 @@ def test_diffwave_batch_equals_items_alone(noise):
     batched = den.sample(plan, feats, n, gens())
     alone = np.concatenate([den.sample(plan, feats[b:b + 1], n, g) for b, g in enumerate(gens())])
     assert np.array_equal(batched, alone)
+
+
+def test_out_of_memory_halves_the_batch_and_says_so():
+    # a module that runs out of device memory above 2 items (torch.OutOfMemoryError, what the
+    # CUDA caching allocator raises): the batch is halved until it fits, each item's audio unchanged
+    torch = pytest.importorskip("torch")
+    from vocobench.torch_adapter import TorchDenoiser
+
+    class Small(torch.nn.Module):
+        sample_rate, conditioning = 22050, "step"
+        frontend = {"sample_rate": 22050, "n_fft": 1024, "win_length": 1024, "hop_length": 256,
+                    "n_mels": 80, "fmin": 0.0, "fmax": 8000.0}
+        training_schedule = linear(50, 1e-4, 0.05)
+
+        def forward(self, x, f, t):
+            if x.shape[0] > 2:
+                raise torch.OutOfMemoryError("CUDA out of memory (simulated)")
+            return 0.3 * x
+
+    den = TorchDenoiser(Small(), noise="torch")
+    plan = make_plan("ddpm", linear(4, 1e-4, 0.5), "step", Small.training_schedule, {})
+    feats = np.zeros((4, 80, 2), np.float32)
+    seeds = [np.random.default_rng(s) for s in range(4)]
+    with pytest.warns(UserWarning, match="halving to 2"):
+        out = den.sample(plan, feats, 512, seeds)
+    alone = [den.sample(plan, feats[:1], 512, np.random.default_rng(s))[0] for s in range(4)]
+    assert np.array_equal(out, np.stack(alone))
+    with pytest.raises(torch.OutOfMemoryError):       # a shared Generator cannot be split
+        den.sample(plan, feats, 512, np.random.default_rng(0))

@@ -121,6 +121,33 @@ class TorchDenoiser(TorchModel):
 
     def sample(self, plan: Any, features: np.ndarray, n_samples: int,
                rng: Any, trace: list | None = None) -> np.ndarray:
+        """Run a plan (:meth:`_sample`); with one Generator per item, a device out-of-memory error
+        halves the batch, says so, and retries: each half gives the audio its items get alone."""
+        from .samplers.noise import item_generators
+
+        gens = item_generators(rng, len(features)) if isinstance(rng, (list, tuple)) else None
+        saved = [g.bit_generator.state for g in gens] if gens else None
+        try:
+            return self._sample(plan, features, n_samples, rng, trace)
+        except import_torch().OutOfMemoryError:
+            batch = len(features)
+            if batch < 2 or not gens:
+                raise
+        import warnings
+
+        for g, state in zip(gens, saved):      # the failed try drew from them: start again
+            g.bit_generator.state = state
+        torch = import_torch()
+        if self.device.type == "cuda":
+            torch.cuda.empty_cache()
+        half = batch // 2
+        warnings.warn(f"out of device memory at batch {batch}: halving to {half} and "
+                      f"{batch - half}, then retrying")
+        return np.concatenate([self.sample(plan, features[:half], n_samples, rng[:half], trace),
+                               self.sample(plan, features[half:], n_samples, rng[half:], trace)])
+
+    def _sample(self, plan: Any, features: np.ndarray, n_samples: int,
+                rng: Any, trace: list | None = None) -> np.ndarray:
         """Run a :class:`~vocobench.samplers.StepPlan` with the state on the device.
 
         ``features`` is ``(B, n_mels, frames)``; returns ``(B, n_samples)`` (float32, float64 when
