@@ -21,7 +21,7 @@ import argparse
 import dataclasses
 import fnmatch
 import sys
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import TYPE_CHECKING, Sequence
 
 from ..errors import InputError
 from .terminal import add_view_flags, choice_from_args

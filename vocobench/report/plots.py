@@ -187,7 +187,8 @@ def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: P
     ax.set_xlabel("steps (log scale)")
     ax.set_ylabel(_axis_label(st, col))
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="best")
+    if ax.get_legend_handles_labels()[0]:       # nothing to label when no configuration scored
+        ax.legend(fontsize=7, loc="best")
     ax.set_title(f"{col} against steps ({100 * st.settings.confidence:g} % CI)", fontsize=10)
     return _save(fig, out_dir, f"{safe_name(col)}_vs_steps", formats)
 
@@ -230,7 +231,7 @@ def spread(st: RunStatistics, col: str, out_dir: Path,
     ax.set_xticklabels(labels, rotation=60, ha="right", fontsize=7)
     ax.set_ylabel(_axis_label(st, col))
     ax.grid(True, axis="y", alpha=0.3)
-    if named and utts:
+    if named and utts and ax.get_legend_handles_labels()[0]:
         ax.legend(title="utterance", fontsize=6, title_fontsize=7, loc="upper left",
                   bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
     ax.set_title(f"{col} per utterance (seeds averaged; one colour per utterance)", fontsize=10)
