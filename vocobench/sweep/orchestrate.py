@@ -74,7 +74,8 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
                  and any(missing_repeats(setup, tdone, j.key))]
         tbar = Progress(len(tjobs), progress, label="timing")
         prior = {}
-        if n_workers == 1 and not (scheduler or cfg.scheduler) and cfg.timing.threads == SWEEP_THREADS:
+        if cfg.timing.reuse_sweep and n_workers == 1 and not (scheduler or cfg.scheduler) \
+                and cfg.timing.threads == SWEEP_THREADS:
             fresh_keys = {j.key for j in plan.todo}     # computed just now, alone, in this process
             prior = sweep_samples(setup, [r for r in read_jsonl(out / ITEMS, check_item)
                                           if r.get("key") in fresh_keys])

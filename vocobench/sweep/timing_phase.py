@@ -25,20 +25,24 @@ def timing_plan(setup: Setup) -> list[tuple[Job, Utterance]]:
             if j.seed == seed and setup.testset.utterances[j.utt].id in chosen]
 
 
-def timing_done(records: list[Mapping[str, Any]]) -> dict[str, set[int]]:
-    """Repeats already journalled per key (−1: the first call), from timing records."""
-    out: dict[str, set[int]] = {}
+def timing_done(records: list[Mapping[str, Any]]) -> dict[str, dict[int, float]]:
+    """Repeats already journalled per key (−1: the first call) with their seconds."""
+    out: dict[str, dict[int, float]] = {}
     for r in records:
         if r.get("key"):
-            out.setdefault(str(r["key"]), set()).add(int(r["repeat"]))
+            out.setdefault(str(r["key"]), {})[int(r["repeat"])] = float(r.get("seconds") or 0.0)
     return out
 
 
-def missing_repeats(setup: Setup, done: Mapping[str, set[int]], key: str) -> tuple[bool, list[int]]:
+def missing_repeats(setup: Setup, done: Mapping[str, Mapping[int, float]], key: str) -> tuple[bool, list[int]]:
     """Whether the first call of ``key``'s timing block is still to be kept, and which repeats
     are missing (``done``: repeats already journalled per key, −1 the first call)."""
-    have = done.get(key, set())
-    return -1 not in have, [r for r in range(setup.config.timing.repeats) if r not in have]
+    have = done.get(key, {})
+    timed = [s for r, s in have.items() if r >= 0]
+    t = setup.config.timing
+    if timed and (len(timed) >= t.repeats or enough(timed, t.rel_width)):
+        return False, []                  # complete: every repeat, or stopped by the rule
+    return -1 not in have, [r for r in range(t.repeats) if r not in have]
 
 
 def sweep_samples(setup: Setup, records: list[Mapping[str, Any]]) -> dict[str, list[float]]:
@@ -54,7 +58,7 @@ def sweep_samples(setup: Setup, records: list[Mapping[str, Any]]) -> dict[str, l
 
 
 def run_timing(setup: Setup, jobs: list[tuple[Job, Utterance]], journal: Journal,
-               progress: Callable[[str], None], done: Mapping[str, set[int]] | None = None,
+               progress: Callable[[str], None], done: Mapping[str, Mapping[int, float]] | None = None,
                prior: Mapping[str, list[float]] | None = None) -> None:
     """Timing phase: alone, threads limited, warm-up then the repeats each block still misses
     (``done``: repeats already journalled per key), stopping early by the sequential rule.
