@@ -119,8 +119,11 @@ def measure_batch(work: Path, cfg) -> dict[str, Any]:
     def batched():
         return nc.seed_batch(den, plan, feats, n, [item_rng(s, u) for s in seeds])
 
-    t1, ys = nc.best_of(alone, 2, den.synchronize)
-    tb, yb = nc.best_of(batched, 2, den.synchronize)
+    from vocobench.timing import thread_limit
+
+    with thread_limit(1, den):                # as the sweep's items run
+        t1, ys = nc.best_of(alone, 3, den.synchronize)
+        tb, yb = nc.best_of(batched, 3, den.synchronize)
     if yb is None:
         return {"ratio": float("nan"), "identical": False, "batch": len(seeds), "alone_s": t1,
                 "batched_s": float("nan"), "load": load}
