@@ -225,7 +225,8 @@ def check_overhead(work: Path, device: str, opts: dict[str, Any], dry: bool) -> 
     with nc.clock() as t:
         out = run(cfg, work / "run", progress=False, report=False, workers=1)
     r = load_run(out)
-    timing_s = float(r.timing["seconds"].sum()) if len(r.timing) else 0.0
+    own = r.timing[r.timing.get("source", "timing") != "sweep"] if len(r.timing) else r.timing
+    timing_s = float(own["seconds"].sum()) if len(own) else 0.0      # the timing phase's own calls
     ratio = (t["wall"] - timing_s) / bare["wall"]
     print(f"\n4. harness against a bare loop ({bare['items']} items, one worker)")
     print(f"   bare {bare['wall']:.2f} s, harness {t['wall']:.2f} s of which timed calls "
