@@ -35,12 +35,13 @@ import subprocess
 import sys
 import tempfile
 import time
-from contextlib import contextmanager
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
+from neural_common import clock  # noqa: E402  (wall and CPU time of a block)
 
 DEMO_CONFIG = ROOT / "scenarios" / "pier-announcements" / "config.toml"
 DEMO_SET = DEMO_CONFIG.parent / "testset"
@@ -142,14 +143,6 @@ class Phases:
         self.appends.clear()
 
 
-@contextmanager
-def clock() -> Iterator[dict[str, float]]:
-    out: dict[str, float] = {}
-    t0, c0 = time.perf_counter(), time.process_time()
-    yield out
-    out["wall"], out["cpu"] = time.perf_counter() - t0, time.process_time() - c0
-
-
 def harness_run(cfg, out: Path, phases: Phases, workers: int) -> dict[str, Any]:
     from vocobench.sweep import run
 
@@ -169,37 +162,12 @@ def harness_run(cfg, out: Path, phases: Phases, workers: int) -> dict[str, Any]:
 
 def bare_loop(cfg, testset) -> dict[str, float]:
     """The same items with no harness: construct, synthesise, equalise lengths, score."""
-    import numpy as np
-    from threadpoolctl import threadpool_limits
+    from neural_common import bare_loop as plain_loop
 
     from vocobench.analytic import AnalyticDenoiser
     from vocobench.contracts import Plugin
-    from vocobench.metrics import LengthPolicy, build_metrics
-    from vocobench.sweep import item_rng
-    from vocobench.testset import load_audio
 
-    with clock() as t, threadpool_limits(1):
-        plugin = Plugin.wrap(AnalyticDenoiser(**cfg.options))
-        fe, sr = plugin.frontend, plugin.sample_rate
-        metrics = build_metrics(cfg.metrics, cfg.metric_options)
-        policy = LengthPolicy(mode=cfg.length_mode, tolerance_hops=cfg.length_tolerance_hops)
-        samplers = cfg.samplers or plugin.samplers()
-        synth = {s: plugin.synthesizer(s, cfg.sampler_options.get(s)) for s in samplers}
-        points = [(spec.build(n, plugin.training_schedule), s)
-                  for spec in cfg.schedules for n in cfg.steps for s in samplers]
-        n = 0
-        for u in testset.utterances:
-            ref = load_audio(u, sr)
-            feats = fe(ref)
-            states = [m.prepare(ref, sr) for m in metrics]
-            for sched, s in points:
-                for seed in cfg.seeds:
-                    y = np.asarray(synth[s](feats, sched, item_rng(seed, u)), dtype=np.float32)
-                    _, est, _ = policy.apply(ref, y, fe.hop_length)
-                    for m, st in zip(metrics, states):
-                        m.score(st, est, sr)
-                    n += 1
-    return {**t, "items": n}
+    return plain_loop(cfg, 1, testset, lambda c: Plugin.wrap(AnalyticDenoiser(**c.options)))
 
 
 # -- the four measurements -------------------------------------------------------------------

@@ -112,3 +112,37 @@ def test_dict_round_trip_and_fingerprint():
     other = dataclasses.replace(fe, hop_length=240)
     assert other.fingerprint() != fe.fingerprint()
     assert fe.differences(other) == {"hop_length": (300, 240)}
+
+
+@pytest.mark.parametrize("center", [True, False])
+def test_numpy_stft_and_mel_bank_equal_librosa_bit_for_bit(center):
+    # librosa 0.11 reference implementation: the front-end computes the same numbers without
+    # importing librosa (whose import compiles numba helpers), so features and scores are unchanged.
+    from vocobench.metrics.melbank import mel, stft_magnitude
+
+    rng = np.random.default_rng(3)
+    y = (0.1 * rng.standard_normal(22050)).astype(np.float32)
+    ref = np.abs(librosa.stft(y, n_fft=1024, hop_length=256, win_length=800, window="hann",
+                              center=center, pad_mode="reflect"))
+    assert np.array_equal(stft_magnitude(y, 1024, 256, 800, center), ref)
+    for kw in ({"fmin": 0.0, "fmax": 8000.0}, {"fmin": 30.0, "fmax": None, "htk": True, "norm": None}):
+        lib = librosa.filters.mel(sr=22050, n_fft=1024, n_mels=80, **kw)
+        assert np.array_equal(mel(22050, 1024, 80, **kw), lib)
+
+
+def test_default_pipeline_does_not_import_librosa():
+    # importing librosa compiles numba helpers (about 25 CPU-s on a first run): the front-end and
+    # the default metrics must not need it
+    import subprocess
+    import sys
+
+    code = ("import sys, numpy as np\n"
+            "from vocobench.analytic import DEMO_FRONTEND\n"
+            "from vocobench.metrics import build_metrics\n"
+            "y = np.sin(np.arange(22050) * 0.05).astype(np.float32)\n"
+            "f = DEMO_FRONTEND(y)\n"
+            "for m in build_metrics(['mcd', 'pesq_wb', 'stoi', 'logmel_l1'], {}):\n"
+            "    m.score(m.prepare(y, 22050), 0.9 * y, 22050)\n"
+            "print('librosa' in sys.modules)\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"

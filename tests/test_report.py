@@ -109,7 +109,7 @@ def test_table_latency_failures_and_pareto_front(run_dir):
 
 
 def test_files_written_and_renderings(run_dir):
-    res = _render(run_dir, margins=MARGINS, plots=True)
+    res = _render(run_dir, margins=MARGINS, plots=True, svg=True)
     rep = run_dir / "report"
     for name in ("table.md", "table.csv", "table.tex", "recommendation.md"):
         assert (rep / name).is_file(), name
@@ -134,6 +134,12 @@ def test_files_written_and_renderings(run_dir):
         for kind in ("vs_rtf", "vs_steps", "spread"):
             assert (rep / "plots" / f"{col}_{kind}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
             assert "<svg" in (rep / "plots" / f"{col}_{kind}.svg").read_text()[:2000]
+
+
+def test_svg_only_on_request(run_dir):
+    _render(run_dir, margins=MARGINS, plots=True)
+    plots = run_dir / "report" / "plots"
+    assert list(plots.glob("*.png")) and not list(plots.glob("*.svg"))
 
 
 def test_column_names_come_from_the_manifest(tmp_path):

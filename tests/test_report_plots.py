@@ -99,9 +99,9 @@ def test_spread_dots_keep_one_colour_per_utterance(result, tmp_path):
     seen = {}
     original = plots._save
 
-    def capture(fig, out_dir, stem):
+    def capture(fig, out_dir, stem, *formats):
         seen["fig"] = fig
-        return original(fig, out_dir, stem)
+        return original(fig, out_dir, stem, *formats)
 
     plots._save = capture
     try:

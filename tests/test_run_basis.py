@@ -203,6 +203,8 @@ use = ["stoi"]
 warmup = 1
 repeats = 4
 utterances = 1
+reuse_sweep = false
+rel_width = 0
 [output]
 save_audio = "none"
 [decide]

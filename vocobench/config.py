@@ -14,7 +14,7 @@ from typing import Any, Mapping
 
 from .errors import InputError
 from .metrics import DEFAULT_METRICS, LENGTH_PARAMS
-from .params import (Choice, Custom, Integer, ListOf, MapOf, Param, Real, String, Table, read_toml,
+from .params import (Boolean, Choice, Custom, Integer, ListOf, MapOf, Param, Real, String, Table, read_toml,
                      with_defaults)
 from .schedules import ScheduleSpec, make_spec
 
@@ -67,9 +67,14 @@ METRICS = Table("metrics", [
 ], doc="Scoring.")
 TIMING = Table("timing", [
     Param("warmup", Integer(low=0), 1, "untimed calls before timing (the first is reported apart)"),
-    Param("repeats", Integer(low=1), 3, "timed calls per configuration and utterance"),
+    Param("repeats", Integer(low=1), 3, "most timed calls per configuration and utterance (the "
+          "sweep's own uncontended calls count)"),
+    Param("rel_width", Real(low=0, keep_int=True), 0.05, "stop repeating once the median's 95 % "
+          "interval is within ± this fraction of it (0: always all repeats)"),
     Param("utterances", Integer(low=0), 2, "timed on the first N utterances; 0 = all"),
     Param("threads", Integer(low=1), 1, "CPU thread limit while timing"),
+    Param("reuse_sweep", Boolean(), True, "with one worker and one thread, keep the sweep's own "
+          "uncontended calls as timing samples"),
 ], doc="The latency phase, run after the sweep, alone.")
 OUTPUT = Table("output", [
     Param("dir", String(), None,
@@ -110,6 +115,8 @@ class TimingConfig:
     repeats: int
     utterances: int               # timed on the first N utterances; 0 = all
     threads: int
+    rel_width: float = 0.05       # sequential stopping: median's 95 % interval within ± this
+    reuse_sweep: bool = True      # one worker: the sweep's calls count as timing samples
 
 
 @dataclass

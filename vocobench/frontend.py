@@ -138,11 +138,12 @@ class MelFrontEnd:
 
     # -- computation ----------------------------------------------------------------------
     def mel_basis(self) -> np.ndarray:
-        import librosa
+        """``(n_mels, 1 + n_fft // 2)`` float32, equal to ``librosa.filters.mel`` (see
+        :mod:`vocobench.metrics.melbank`: no librosa import, so no numba compilation)."""
+        from .metrics.melbank import mel
 
-        return librosa.filters.mel(sr=self.sample_rate, n_fft=self.n_fft, n_mels=self.n_mels,
-                                   fmin=self.fmin, fmax=self.fmax, htk=self.mel_scale == "htk",
-                                   norm=self.mel_norm)
+        return mel(self.sample_rate, self.n_fft, self.n_mels, self.fmin, self.fmax,
+                   htk=self.mel_scale == "htk", norm=self.mel_norm)
 
     def n_frames(self, n_samples: int) -> int:
         if self.center:
@@ -155,14 +156,20 @@ class MelFrontEnd:
 
     def __call__(self, audio: np.ndarray) -> np.ndarray:
         """Log-mel features, shape ``(n_mels, frames)``, float32."""
-        import librosa
+        from .metrics.melbank import stft_magnitude
 
         y = np.asarray(audio, dtype=np.float32)
         if y.ndim != 1:
             raise InputError("audio for the front-end must be 1-D", field="audio", value=y.shape)
-        spec = np.abs(librosa.stft(y, n_fft=self.n_fft, hop_length=self.hop_length,
-                                   win_length=self.win_length, window="hann", center=self.center,
-                                   pad_mode="reflect")) ** self.power
+        if y.size > self.n_fft:
+            spec = stft_magnitude(y, self.n_fft, self.hop_length, self.win_length, self.center)
+        else:                    # shorter than one frame: librosa's own padding rules and warnings
+            import librosa
+
+            spec = np.abs(librosa.stft(y, n_fft=self.n_fft, hop_length=self.hop_length,
+                                       win_length=self.win_length, window="hann",
+                                       center=self.center, pad_mode="reflect"))
+        spec = spec ** self.power
         mel = self.mel_basis() @ spec
         mel = np.maximum(mel, self.floor) if self.floor_mode == "clamp" else mel + self.floor
         logmel = LOG_FUNCS[self.log](mel)

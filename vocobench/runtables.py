@@ -123,7 +123,11 @@ def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence
                     nfe: Mapping[str, int]) -> pd.DataFrame:
     """Latency per configuration from the timing journal (repeat ≥ 0; repeat −1 reported apart).
 
-    Columns: ``nfe, rtf_median, rtf_p90, ms_per_nfe, first_call_s, n_timed, latency_source``.
+    Columns: ``nfe, rtf_median, rtf_p90, ms_per_nfe, first_call_s, n_timed, latency_source,
+    threads, batch``. ``latency_source`` says how the figure was obtained: ``timing`` (the timing
+    phase's own calls), ``sweep (uncontended)`` (the one-worker sweep's calls, kept as timing
+    samples), both joined by ``+``, or ``sweep`` (below); ``threads`` and ``batch`` are those of
+    the timed calls.
     ``rtf_p90`` is numpy's default (linear) 90th percentile. A configuration absent from the
     timing journal falls back to the sweep's own timings (``latency_source = "sweep"``), which
     are contended when the sweep ran with several workers.
@@ -135,7 +139,7 @@ def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence
         n = int(nfe.get(c.label, c.steps))
         row: dict[str, Any] = {"config": c.label, "nfe": n, "rtf_median": np.nan, "rtf_p90": np.nan,
                                "ms_per_nfe": np.nan, "first_call_s": np.nan, "n_timed": 0,
-                               "latency_source": "none"}
+                               "latency_source": "none", "threads": np.nan, "batch": np.nan}
         src = timing[tlab == c.label] if tlab is not None else timing.iloc[0:0]
         if len(src):
             rep = pd.to_numeric(src["repeat"], errors="coerce") if "repeat" in src.columns \
@@ -144,8 +148,13 @@ def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence
             rtf = pd.to_numeric(timed.get("rtf"), errors="coerce").dropna().to_numpy()
             if rtf.size:
                 row.update(rtf_median=float(np.median(rtf)), rtf_p90=float(np.percentile(rtf, 90)),
-                           n_timed=int(rtf.size), latency_source="timing")
+                           n_timed=int(rtf.size), latency_source=_sources(timed))
                 row["ms_per_nfe"] = _ms_per_nfe(timed, n)
+                for col in ("threads", "batch"):
+                    v = pd.to_numeric(timed.get(col), errors="coerce").dropna() \
+                        if col in timed.columns else ()
+                    if len(v) and v.nunique() == 1:
+                        row[col] = int(v.iloc[0])
             secs = pd.to_numeric(first.get("seconds"), errors="coerce").dropna().to_numpy()
             if secs.size:
                 row["first_call_s"] = float(np.median(secs))
@@ -158,6 +167,17 @@ def latency_summary(timing: pd.DataFrame, items: pd.DataFrame, configs: Sequence
                 row["ms_per_nfe"] = _ms_per_nfe(sw, n)
         rows.append(row)
     return pd.DataFrame(rows).set_index("config")
+
+
+SOURCE_NAMES = {"timing": "timing", "sweep": "sweep (uncontended)"}
+
+
+def _sources(timed: pd.DataFrame) -> str:
+    """How timed rows were obtained: their ``source`` values (``timing`` when absent)."""
+    if "source" not in timed.columns:
+        return "timing"
+    found = timed["source"].fillna("timing").astype(str)
+    return "+".join(SOURCE_NAMES.get(v, v) for v in sorted(set(found), reverse=True))
 
 
 def _ms_per_nfe(frame: pd.DataFrame, nfe: int) -> float:

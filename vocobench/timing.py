@@ -14,6 +14,38 @@ from dataclasses import dataclass
 from typing import Any, Callable, Iterator, Sequence
 
 
+# Sequential stopping of repeats: the fixed-width sequential confidence interval of Chow & Robbins
+# 1965 ("On the asymptotic theory of fixed-width sequential confidence intervals for the mean",
+# Ann. Math. Statist. 36): sample until the interval's half-width is within the set width. It is
+# applied to log-times (run times are skewed and multiplicative, so the mean of their logarithm
+# estimates the log of the median), with Student's t interval; at least MIN_SAMPLES samples.
+CONFIDENCE = 0.95
+MIN_SAMPLES = 3
+
+
+def median_rel_halfwidth(seconds: Sequence[float], confidence: float = CONFIDENCE) -> float:
+    """Relative half-width of the ``confidence`` interval for the median time: ``exp(t·s/√n) − 1``
+    of the log-times (t: Student's quantile, n − 1 degrees of freedom); ``inf`` below 2 samples."""
+    import math
+
+    x = [math.log(v) for v in seconds if v > 0]
+    n = len(x)
+    if n < 2:
+        return math.inf
+    from scipy.stats import t as student
+
+    mean = sum(x) / n
+    sd = math.sqrt(sum((v - mean) ** 2 for v in x) / (n - 1))
+    return math.expm1(float(student.ppf(0.5 + confidence / 2, n - 1)) * sd / math.sqrt(n))
+
+
+def enough(seconds: Sequence[float], rel_width: float) -> bool:
+    """Whether repeats may stop: at least :data:`MIN_SAMPLES` and the median's interval within
+    ± ``rel_width`` (``rel_width`` 0 never stops early)."""
+    return rel_width > 0 and len(seconds) >= MIN_SAMPLES and \
+        median_rel_halfwidth(seconds) <= rel_width
+
+
 @dataclass(frozen=True)
 class Timing:
     first_s: float              # the first call (lazy initialisation, compilation): reported apart
@@ -23,12 +55,15 @@ class Timing:
 
 def time_call(fn: Callable[[], Any], *, warmup: int = 1, repeats: int = 3,
               sync: Callable[[], None] | None = None, indices: Sequence[int] | None = None,
-              on_time: Callable[[int, float], None] | None = None) -> Timing:
+              on_time: Callable[[int, float], None] | None = None, first: bool = True,
+              stop: Callable[[list[float]], bool] | None = None) -> Timing:
     """Call ``fn`` ``warmup`` times (the first one timed apart), then time ``repeats`` calls.
 
     ``indices``: which repeats to time (default ``range(repeats)``; a resumed block times only
     the missing ones). ``on_time(index, seconds)`` is called after every timed call, index −1
-    for the first one, so that each measurement can be kept the moment it exists.
+    for the first one, so that each measurement can be kept the moment it exists. ``first=False``
+    (the process is already warm) skips the first call and the warm-up; ``stop(times)`` ends the
+    repeats early when it returns true (see :func:`enough`).
     """
     sync = sync or (lambda: None)
     note = on_time or (lambda i, s: None)
@@ -40,16 +75,20 @@ def time_call(fn: Callable[[], Any], *, warmup: int = 1, repeats: int = 3,
         sync()
         return time.perf_counter() - t0, out
 
-    first, result = once()
-    note(-1, first)
-    for _ in range(max(warmup - 1, 0)):
-        once()
-    times = []
+    first_s, result = float("nan"), None
+    if first:
+        first_s, result = once()
+        note(-1, first_s)
+        for _ in range(max(warmup - 1, 0)):
+            once()
+    times: list[float] = []
     for i in (range(repeats) if indices is None else indices):
+        if stop is not None and stop(times):
+            break
         dt, result = once()
         times.append(dt)
         note(i, dt)
-    return Timing(first, times, result)
+    return Timing(first_s, times, result)
 
 
 @contextlib.contextmanager

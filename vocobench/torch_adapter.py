@@ -120,16 +120,46 @@ class TorchDenoiser(TorchModel):
         return out.double().numpy() if self.dtype == import_torch().float64 else out.float().numpy()
 
     def sample(self, plan: Any, features: np.ndarray, n_samples: int,
-               rng: np.random.Generator, trace: list | None = None) -> np.ndarray:
+               rng: Any, trace: list | None = None) -> np.ndarray:
+        """Run a plan (:meth:`_sample`); with one Generator per item, a device out-of-memory error
+        halves the batch, says so, and retries: each half gives the audio its items get alone."""
+        from .samplers.noise import item_generators
+
+        gens = item_generators(rng, len(features)) if isinstance(rng, (list, tuple)) else None
+        saved = [g.bit_generator.state for g in gens] if gens else None
+        try:
+            return self._sample(plan, features, n_samples, rng, trace)
+        except import_torch().OutOfMemoryError:
+            batch = len(features)
+            if batch < 2 or not gens:
+                raise
+        import warnings
+
+        for g, state in zip(gens, saved):      # the failed try drew from them: start again
+            g.bit_generator.state = state
+        torch = import_torch()
+        if self.device.type == "cuda":
+            torch.cuda.empty_cache()
+        half = batch // 2
+        warnings.warn(f"out of device memory at batch {batch}: halving to {half} and "
+                      f"{batch - half}, then retrying")
+        return np.concatenate([self.sample(plan, features[:half], n_samples, rng[:half], trace),
+                               self.sample(plan, features[half:], n_samples, rng[half:], trace)])
+
+    def _sample(self, plan: Any, features: np.ndarray, n_samples: int,
+                rng: Any, trace: list | None = None) -> np.ndarray:
         """Run a :class:`~vocobench.samplers.StepPlan` with the state on the device.
 
         ``features`` is ``(B, n_mels, frames)``; returns ``(B, n_samples)`` (float32, float64 when
         dtype is). The sampler's update is the one :func:`vocobench.samplers.run_plan` runs
         (:func:`vocobench.samplers.execute`, one implementation for both), with the state kept in
         float32 (float64 when dtype is) and cast to ``dtype`` for each call of the module.
-        Adaptive plans run item by item and append the schedule used to ``trace``.
+        Adaptive plans run item by item and append the schedule used to ``trace``. ``rng`` is the
+        run's Generator, or one Generator per item: then an item's audio is the audio it gets alone
+        (for a module whose output for one item does not depend on the others).
         """
         from .samplers import Env, execute, run_plan
+        from .samplers.noise import rng_of_item
 
         estimate = getattr(self, "estimate_noise_level", None)
         if self.loop == "numpy":
@@ -139,7 +169,8 @@ class TorchDenoiser(TorchModel):
         state = torch.promote_types(self.dtype, torch.float32)
         feats_all = np.asarray(features)
         if plan.adaptive and feats_all.shape[0] > 1:
-            return np.concatenate([self.sample(plan, feats_all[b:b + 1], n_samples, rng, trace)
+            return np.concatenate([self.sample(plan, feats_all[b:b + 1], n_samples,
+                                               rng_of_item(rng, b), trace)
                                    for b in range(feats_all.shape[0])])
         with self._no_grad():
             feats = self._features(feats_all)
@@ -158,9 +189,10 @@ class TorchDenoiser(TorchModel):
                ) -> tuple[Callable[[], "torch.Tensor"], Callable[[float], "torch.Tensor"]]:
         """Standard normal and standardised Gamma draws shaped ``(batch, n)`` on the device. Gamma
         draws come from numpy (torch's Gamma sampler takes no generator), standardised in float64:
-        the run's Generator, or with ``noise="torch"`` one numpy Generator per item seeded like
-        that item's torch Generator."""
-        from .samplers.noise import standardised
+        the run's Generator (or one per item), or with ``noise="torch"`` one numpy Generator per
+        item seeded like that item's torch Generator, itself seeded from the item's own Generator
+        when there is one per item."""
+        from .samplers.noise import gamma_draws, item_generators, normal_draws, standardised
 
         torch = import_torch()
         dev = self.device
@@ -169,9 +201,11 @@ class TorchDenoiser(TorchModel):
             return torch.from_numpy(a).to(dtype).to(dev)
 
         if self.noise == "numpy":
-            return (lambda: put(rng.standard_normal((batch, n))),
-                    lambda k: put(standardised(rng.gamma(k, 1.0, (batch, n)), k)))
-        seeds = [int(rng.integers(SEED_HIGH)) for _ in range(batch)]
+            return (lambda: put(normal_draws(rng, (batch, n))),
+                    lambda k: put(gamma_draws(rng, k, (batch, n))))
+        own = item_generators(rng, batch)
+        seeds = [int(g.integers(SEED_HIGH)) for g in own] if own is not None else \
+            [int(rng.integers(SEED_HIGH)) for _ in range(batch)]
         gens = [torch.Generator(device=dev).manual_seed(s) for s in seeds]
         host = [np.random.default_rng(s) for s in seeds]
         return (lambda: torch.stack([torch.randn(n, generator=g, device=dev, dtype=dtype)

@@ -40,11 +40,12 @@ def frame_energy_db(frames: np.ndarray) -> np.ndarray:
 @functools.lru_cache(maxsize=32)
 def mel_filterbank(sr: int, n_fft: int, n_mels: int, fmin: float = 0.0,
                    fmax: float | None = None) -> np.ndarray:
-    """``librosa.filters.mel`` (Slaney mel, Slaney area norm, float32), built once per argument
+    """``librosa.filters.mel`` (Slaney mel, Slaney area norm, float32; computed by
+    :func:`vocobench.metrics.melbank.mel` without importing librosa), built once per argument
     set; (n_mels, n_fft//2 + 1), read-only."""
-    import librosa
+    from .melbank import mel
 
-    fb = librosa.filters.mel(sr=sr, n_fft=n_fft, n_mels=n_mels, fmin=fmin, fmax=fmax)
+    fb = mel(sr, n_fft, n_mels, fmin, fmax)
     fb.setflags(write=False)
     return fb
 

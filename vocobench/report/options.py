@@ -51,6 +51,7 @@ DECIDE = Table("decide", [
     BOOTSTRAP["method"],
     Param("worst", Integer(low=0), 3, "worst utterances listed per configuration and metric"),
     Param("plots", Boolean(), True, "write plots"),
+    Param("svg", Boolean(), False, "also write the plots as SVG (PNG always; SVG doubles the drawing)"),
     Param("page", Boolean(), True, "write the listening page"),
 ], doc="Options of the decision stage (`vocobench report`), kept in the run manifest.")
 
@@ -74,6 +75,7 @@ class ReportOptions:
     method: str
     worst: int
     plots: bool
+    svg: bool
     page: bool
     source: str = "[decide]"
 

@@ -35,7 +35,8 @@ if TYPE_CHECKING:
 
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*", "h", "<", ">")
 DPI = 110
-FORMATS = ("png", "svg")
+FORMATS = ("png", "svg")         # every format a plot can be written in
+DEFAULT_FORMATS = ("png",)       # SVG on request ([decide] svg = true): it doubles the drawing time
 TITLE_CHARS_PER_INCH = 13        # about right for 10 pt DejaVu Sans (measured, our choice)
 LOG_DECADES = 1.0                # an RTF axis spanning more than this many decades is logarithmic
 UTT_LEGEND_MAX = 20              # spread plots name the utterances up to this many
@@ -46,11 +47,12 @@ def safe_name(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]", "_", str(text)) or "_"
 
 
-def _save(fig: Figure, out_dir: Path, stem: str) -> list[Path]:
+def _save(fig: Figure, out_dir: Path, stem: str, formats: Sequence[str] = DEFAULT_FORMATS
+          ) -> list[Path]:
     FigureCanvasAgg(fig)
     paths = []
     with matplotlib.rc_context({"svg.hashsalt": "vocobench", "svg.fonttype": "none"}):
-        for ext in FORMATS:
+        for ext in formats:
             p = out_dir / f"{stem}.{ext}"
             fig.savefig(p, dpi=DPI, metadata={"Date": None} if ext == "svg" else None)
             paths.append(p)
@@ -164,11 +166,13 @@ def rtf_figure(st: RunStatistics, table: pd.DataFrame, col: str,
 
 
 def metric_vs_rtf(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Path,
-                  decision: "Recommendation | None" = None) -> list[Path]:
-    return _save(rtf_figure(st, table, col, decision), out_dir, f"{safe_name(col)}_vs_rtf")
+                  decision: "Recommendation | None" = None,
+                  formats: Sequence[str] = DEFAULT_FORMATS) -> list[Path]:
+    return _save(rtf_figure(st, table, col, decision), out_dir, f"{safe_name(col)}_vs_rtf", formats)
 
 
-def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Path) -> list[Path]:
+def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: Path,
+                    formats: Sequence[str] = DEFAULT_FORMATS) -> list[Path]:
     fig = Figure(figsize=(5.5, 3.8), layout="constrained")
     ax = fig.subplots()
     samplers = list(dict.fromkeys(table["sampler"]))
@@ -186,7 +190,7 @@ def metric_vs_steps(st: RunStatistics, table: pd.DataFrame, col: str, out_dir: P
     if ax.get_legend_handles_labels()[0]:       # nothing to label when no configuration scored
         ax.legend(fontsize=7, loc="best")
     ax.set_title(f"{col} against steps ({100 * st.settings.confidence:g} % CI)", fontsize=10)
-    return _save(fig, out_dir, f"{safe_name(col)}_vs_steps")
+    return _save(fig, out_dir, f"{safe_name(col)}_vs_steps", formats)
 
 
 def utterance_colours(utts: Sequence[str]) -> dict[str, tuple]:
@@ -198,7 +202,8 @@ def utterance_colours(utts: Sequence[str]) -> dict[str, tuple]:
     return {u: cmap(i if name != "turbo" else i / n) for i, u in enumerate(utts)}
 
 
-def spread(st: RunStatistics, col: str, out_dir: Path) -> list[Path]:
+def spread(st: RunStatistics, col: str, out_dir: Path,
+           formats: Sequence[str] = DEFAULT_FORMATS) -> list[Path]:
     t = st.per_utterance[col]
     labels = list(t.columns)
     t = t.set_axis([str(u) for u in t.index]).sort_index()
@@ -230,19 +235,21 @@ def spread(st: RunStatistics, col: str, out_dir: Path) -> list[Path]:
         ax.legend(title="utterance", fontsize=6, title_fontsize=7, loc="upper left",
                   bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
     ax.set_title(f"{col} per utterance (seeds averaged; one colour per utterance)", fontsize=10)
-    return _save(fig, out_dir, f"{safe_name(col)}_spread")
+    return _save(fig, out_dir, f"{safe_name(col)}_spread", formats)
 
 
 def write_plots(st: RunStatistics, table: pd.DataFrame, out_dir: Path,
-                decision: "Recommendation | None" = None) -> list[Path]:
+                decision: "Recommendation | None" = None, svg: bool = False) -> list[Path]:
     """All plots of the module docstring; returns the files written. ``decision`` supplies the
-    recommended configurations and the RTF budget drawn on the RTF plots."""
+    recommended configurations and the RTF budget drawn on the RTF plots. PNG always, SVG too
+    with ``svg``."""
+    formats = FORMATS if svg else DEFAULT_FORMATS
     out_dir.mkdir(parents=True, exist_ok=True)
     for old in list(out_dir.glob("*.png")) + list(out_dir.glob("*.svg")):
         old.unlink()
     paths: list[Path] = []
     for col in st.columns:
-        paths += metric_vs_rtf(st, table, col, out_dir, decision)
-        paths += metric_vs_steps(st, table, col, out_dir)
-        paths += spread(st, col, out_dir)
+        paths += metric_vs_rtf(st, table, col, out_dir, decision, formats)
+        paths += metric_vs_steps(st, table, col, out_dir, formats)
+        paths += spread(st, col, out_dir, formats)
     return paths

@@ -161,7 +161,7 @@ def _write(staging: Staging, run: Run, st: RunStatistics, opts: ReportOptions, p
     if opts.plots and st.columns:
         from .plots import write_plots
 
-        plots = write_plots(st, parts.table, rep / "plots", decision)
+        plots = write_plots(st, parts.table, rep / "plots", decision, svg=opts.svg)
     page_files: list[Path] = []
     if opts.page:
         chosen = [ConfigKey.parse(x).label for x in opts.listen] if opts.listen else \

@@ -25,7 +25,7 @@ from ..arrays import to_numpy
 from ..errors import InputError
 from ..schedules import NoiseSchedule
 from .levels import Pred, alpha_bar_of, log_snr
-from .noise import GAUSSIAN, NoiseLaw, standardised
+from .noise import GAUSSIAN, NoiseLaw, gamma_draws, normal_draws, rng_of_item
 
 # Smallest log-SNR gap kept between levels when a re-plan moves them (our choice: keeps every step
 # of positive length so that step-size ratios stay finite).
@@ -187,22 +187,24 @@ def execute(plan: StepPlan, env: Env) -> Any:
 
 
 def run_plan(plan: StepPlan, predict: Callable[[np.ndarray, np.ndarray, np.ndarray], Any],
-             features: np.ndarray, n_samples: int, rng: np.random.Generator,
+             features: np.ndarray, n_samples: int, rng: Any,
              dtype: type = np.float32, estimate: Callable[[np.ndarray, np.ndarray], Any] | None = None,
              trace: list | None = None) -> np.ndarray:
     """Sample a batch: ``features`` is ``(B, n_mels, frames)``; returns ``(B, n_samples)``.
 
     ``predict(x_t, features, t)`` returns the network output (ε̂, x̂_0 or v̂ as the plan says) with
     the shape of ``x_t``. Noise is drawn from ``rng`` in a fixed order (x_N, then each stochastic
-    step), so one seed gives bit-identical output. The state is float64; the denoiser sees
+    step), so one seed gives bit-identical output; ``rng`` may also be one Generator per batch item
+    (:func:`~vocobench.samplers.noise.item_generators`), making each item's output independent of
+    its batch. The state is float64; the denoiser sees
     ``dtype``. Adaptive plans run item by item (each item gets its own schedule, appended to
     ``trace``), with ``estimate(x_t, features)`` giving ᾱ̂.
     """
     feats = np.asarray(features, dtype=dtype)
     batch = feats.shape[0]
     if plan.adaptive and batch > 1:
-        return np.concatenate([run_plan(plan, predict, feats[b:b + 1], n_samples, rng, dtype,
-                                        estimate, trace) for b in range(batch)])
+        return np.concatenate([run_plan(plan, predict, feats[b:b + 1], n_samples,
+                                        rng_of_item(rng, b), dtype, estimate, trace) for b in range(batch)])
     shape = (batch, n_samples)
 
     def call(x: np.ndarray, c: float) -> np.ndarray:
@@ -213,5 +215,5 @@ def run_plan(plan: StepPlan, predict: Callable[[np.ndarray, np.ndarray, np.ndarr
         return out
 
     est = None if estimate is None else (lambda x: estimate(x.astype(dtype), feats))
-    return execute(plan, Env(call, lambda: rng.standard_normal(shape),
-                             lambda k: standardised(rng.gamma(k, 1.0, shape), k), est, trace))
+    return execute(plan, Env(call, lambda: normal_draws(rng, shape),
+                             lambda k: gamma_draws(rng, k, shape), est, trace))

@@ -92,3 +92,38 @@ def forward(x0: np.ndarray, alpha_bar: float, law: NoiseLaw, rng: np.random.Gene
     """x_0 → x_t in one draw (the closed form of the module docstring)."""
     k, theta = law.total_shape(alpha_bar), law.scale(alpha_bar)
     return math.sqrt(alpha_bar) * x0 + (rng.gamma(k, theta, np.shape(x0)) - k * theta)
+
+
+# -- one generator per batch item ----------------------------------------------------------------
+def item_generators(rng: Any, batch: int) -> list[np.random.Generator] | None:
+    """``rng`` as one Generator per batch item (a list or tuple of ``batch`` Generators), or
+    ``None`` when it is one Generator (or Generator-like object) for the whole batch. With one Generator per item, an item's draws are
+    those it gets alone (``standard_normal((1, n))`` fills the same stream as ``standard_normal(n)``),
+    so batched synthesis gives bit-identical audio whatever the batch size."""
+    if not isinstance(rng, (list, tuple)):
+        return None
+    gens = list(rng)
+    if len(gens) != batch or not all(isinstance(g, np.random.Generator) for g in gens):
+        raise ValueError(f"need one numpy Generator per batch item ({batch}), got {len(gens)}")
+    return gens
+
+
+def normal_draws(rng: Any, shape: tuple[int, int]) -> np.ndarray:
+    """Standard normal ``(batch, n)``: from one Generator, or row b from the b-th item's own."""
+    gens = item_generators(rng, shape[0])
+    if gens is None:
+        return rng.standard_normal(shape)
+    return np.stack([g.standard_normal(shape[1]) for g in gens])
+
+
+def gamma_draws(rng: Any, k: float, shape: tuple[int, int]) -> np.ndarray:
+    """Standardised Gamma(k) ``(batch, n)``, drawn like :func:`normal_draws`."""
+    gens = item_generators(rng, shape[0])
+    if gens is None:
+        return standardised(rng.gamma(k, 1.0, shape), k)
+    return standardised(np.stack([g.gamma(k, 1.0, shape[1]) for g in gens]), k)
+
+
+def rng_of_item(rng: Any, b: int) -> Any:
+    """Item ``b``'s generator when there is one per item, else the shared one."""
+    return rng[b] if isinstance(rng, (list, tuple)) else rng

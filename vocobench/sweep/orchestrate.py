@@ -21,8 +21,11 @@ from .plan import Job, Setup, prepare
 from .preflight import estimate, hms, plan_text, reuse_plan
 from .progress import Progress, say
 from .remote import Record, Sink
-from .timing_phase import missing_repeats, run_timing, timing_done, timing_plan
+from .timing_phase import missing_repeats, run_timing, sweep_samples, timing_done, timing_plan
 from .worker import Worker
+
+
+SWEEP_THREADS = 1      # sweep items run with one BLAS/torch thread (results must not depend on it)
 
 
 def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = True,
@@ -70,10 +73,16 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
         tjobs = [(j, u) for j, u in timing_plan(setup) if status.get(j.key) != "failed"
                  and any(missing_repeats(setup, tdone, j.key))]
         tbar = Progress(len(tjobs), progress, label="timing")
+        prior = {}
+        if cfg.timing.reuse_sweep and n_workers == 1 and not (scheduler or cfg.scheduler) \
+                and cfg.timing.threads == SWEEP_THREADS:
+            fresh_keys = {j.key for j in plan.todo}     # computed just now, alone, in this process
+            prior = sweep_samples(setup, [r for r in read_jsonl(out / ITEMS, check_item)
+                                          if r.get("key") in fresh_keys])
         tj = Journal(out / TIMING)
         try:
             run_timing(setup, tjobs, tj, lambda s: tbar.step(s) if s.startswith("timed")
-                       else say(progress, s), done=tdone)
+                       else say(progress, s), done=tdone, prior=prior)
         finally:
             tj.close()
         stored = write_tables(out)
@@ -154,7 +163,7 @@ def run_jobs(setup: Setup, jobs: list[Job], journal: Journal, bar: Progress, wor
         run_parallel(setup, jobs, finished, workers=workers, scheduler=scheduler)
         return status
     worker = Worker(setup)
-    with thread_limit(1, setup.plugin.obj):
+    with thread_limit(SWEEP_THREADS, setup.plugin.obj):
         for job in jobs:
             finished(worker.process(job))
     return status

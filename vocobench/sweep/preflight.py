@@ -123,7 +123,7 @@ def journal_seconds_per_eval(records: list[Mapping[str, Any]]) -> float | None:
     return float(np.median(rates)) if rates else None
 
 
-def estimate(setup: Setup, todo: list[Job], workers: int, timing_done: Mapping[str, set[int]],
+def estimate(setup: Setup, todo: list[Job], workers: int, timing_done: Mapping[str, Mapping[int, float]],
              records: list[Mapping[str, Any]] = ()) -> Estimate:
     """Cost of ``todo`` (over ``workers``) and of the timing blocks still missing repeats:
     steps × seconds of audio × the time per step, measured on the journal's finished items
