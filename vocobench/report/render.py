@@ -26,6 +26,7 @@ from ..textfmt import latex_table, md_cell, md_table, text_table
 from .decide import CAUTION, Recommendation, recommend
 from .listening import default_choice, fewest_steps, write_listening_page
 from .options import ReportOptions
+from .recommendation import RECOMMENDATION_FILE, recommendation_text
 from .table import build_table, display_table, worst_utterances
 
 TITLE = "Quality against latency"
@@ -113,13 +114,13 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
                             if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
         opts = opts.replace(metrics=with_values) if with_values else opts
     table = build_table(st)
-    header, rows = display_table(table, st)
     if st.columns and opts.metrics:
-        decision = recommend(st, table, opts)
+        decision = recommend(st, table, opts)      # also marks the recommended rows in `table`
         text = decision.text
     else:
         decision = None
         text = "The run has no metric values; only latency is reported.\n\n" + CAUTION + "\n"
+    header, rows = display_table(table, st)
     parts = ReportParts(run_dir, st, table, header, rows, worst_utterances(st, opts.worst), opts.worst,
                         text)
     rep = run_dir / "report"
@@ -127,6 +128,8 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     paths: dict[str, Path] = {}
     for name, writer in WRITERS.items():
         _put(paths, name, rep / name, writer(parts))
+    _put(paths, "recommendation.json", run_dir / RECOMMENDATION_FILE,      # read by the gate
+         recommendation_text(decision, opts))
 
     plots = []
     if opts.plots and st.columns:
