@@ -37,8 +37,17 @@ def test_bootstrap_p_edge_cases():
     assert math.isnan(bootstrap_p([1.0], [], 0.0))
     assert bootstrap_p([0.2, 0.2, 0.2], [], 0.5) == 0.0         # constant below the threshold
     assert bootstrap_p([0.2, 0.2, 0.2], [], 0.1) == 1.0
-    boot = np.full(1000, -1.0)                                  # every resample below t
-    assert bootstrap_p([-1.0, -1.1, -0.9], boot, 0.0, "percentile") == pytest.approx(1 / 1001)
+    # a threshold above every resample: every bound at any level lies below it (scipy's BCa
+    # bound at 1 − 1/B is still below), so p is the Monte Carlo floor 1/(B + 1), also for BCa
+    # on skewed data, where the acceleration would otherwise stretch the tail
+    x = np.array([-5.0, -4.9, -4.8, -4.7, -4.6, -4.5, -4.4, -2.0])
+    res = sst.bootstrap((x,), np.mean, n_resamples=999, method="BCa", alternative="less",
+                        confidence_level=1 - 1 / 999, rng=np.random.default_rng(0))
+    t = float(res.bootstrap_distribution.max()) + 0.01
+    assert res.confidence_interval.high < t
+    for method in ("BCa", "percentile", "basic"):
+        assert bootstrap_p(x, res.bootstrap_distribution, t + 1.0, method) == pytest.approx(1 / 1000)
+    assert bootstrap_p(x, res.bootstrap_distribution, -100.0, "BCa") == 1.0
 
 
 @pytest.mark.parametrize("n", [2, 3, 6, 10])

@@ -99,9 +99,11 @@ def bootstrap_p(x: Sequence[float], boot: Sequence[float], threshold: float,
 
     ``boot`` is the bootstrap distribution of ``mean(x)`` (``scipy.stats.bootstrap(...)
     .bootstrap_distribution``) and ``method`` the interval method whose one-sided upper bound
-    the p-value inverts: ``p ≤ α`` exactly when that bound at confidence ``1 − α`` lies below
+    the p-value inverts: ``p ≤ α`` when that bound at confidence ``1 − α`` lies below
     ``threshold`` (module docstring). For H₁: ``mean(x) > t`` call it with ``−x``, ``−boot``,
-    ``−t``. Fewer than two finite values give NaN; a constant sample gives 0 or 1.
+    ``−t``. Fewer than two finite values give NaN; a constant sample gives 0 or 1; a threshold
+    above every resample gives the Monte Carlo floor ``1/(B + 1)`` whatever the method (every
+    bound lies below it), one at or below every resample gives 1.
     """
     a = np.asarray(x, dtype=np.float64)
     a = a[np.isfinite(a)]
@@ -115,15 +117,20 @@ def bootstrap_p(x: Sequence[float], boot: Sequence[float], threshold: float,
     if method == "basic":
         b = 2.0 * theta - b                     # the basic bound is the reflected percentile one
     big = b.size
-    tail = (1.0 + np.count_nonzero(b >= threshold)) / (big + 1.0)   # percentile p-value
+    above = int(np.count_nonzero(b >= threshold))
+    if above == 0:                              # every bound lies below the threshold
+        return 1.0 / (big + 1.0)
+    if above == big:                            # none does
+        return 1.0
+    tail = (1.0 + above) / (big + 1.0)          # percentile p-value
     if method != "BCa":
-        return float(min(1.0, tail))
+        return float(tail)
     frac = (np.count_nonzero(b < theta) + np.count_nonzero(b <= theta)) / (2.0 * big)
     if not 0.0 < frac < 1.0:                    # BCa undefined: the bounds fall back likewise
-        return float(min(1.0, tail))
+        return float(tail)
     z0 = z(frac)
     acc = _jackknife_acceleration(a)
-    v = -z(min(tail, big / (big + 1.0))) - z0   # Φ⁻¹(F(t)) − z0, F(t) = 1 − tail
+    v = -z(tail) - z0                           # Φ⁻¹(F(t)) − z0, F(t) = 1 − tail
     if 1.0 + acc * v <= 0.0:
         return float(min(1.0, tail))
     zq = v / (1.0 + acc * v) - z0               # solves z0 + (z0 + zq)/(1 − a(z0 + zq)) = Φ⁻¹(F)

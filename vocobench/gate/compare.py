@@ -76,6 +76,9 @@ def compare_runs(baseline: "str | Path | Run", candidate: "str | Path | Run",
         comp.notes.append(f"no seed in common (baseline {seeds_b}, candidate {seeds_c}); utterance "
                           "means over each run's own seeds are compared (different noise draws)")
     cols, col_notes = compared_columns(base, cand)
+    if not cols:
+        raise InputError("no metric column to compare: " + ("; ".join(col_notes) or
+                         "neither run has a directed metric column"), source=str(cand.path))
     comp.notes.extend(col_notes)
     hw = hardware_differences(base.manifest, cand.manifest)
     if hw:

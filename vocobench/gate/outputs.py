@@ -20,7 +20,7 @@ from ..store import dumps, write_atomic
 from ..textfmt import fmt_signed, md_cell, md_table, signed_interval
 from .verdict import Comparison, ConfigResult, MetricResult
 
-LINE_SHOWN = 3                  # regressions named in the verdict line
+LINE_SHOWN = 3                  # configurations named in the verdict line
 
 
 def _config_brief(c: ConfigResult) -> str:
@@ -50,7 +50,9 @@ def verdict_line(comp: Comparison) -> str:
         more = f"; and {len(bad) - LINE_SHOWN} more" if len(bad) > LINE_SHOWN else ""
         return f"REGRESSION: {len(bad)} of {what} worse ({shown}{more}){suffix}"
     if comp.verdict == "pass":
-        return f"PASS: {what} shown no worse than allowed ({', '.join(c.name for c in gated)}){suffix}"
+        names = ", ".join(c.name for c in gated[:LINE_SHOWN]) + \
+            (f" and {n - LINE_SHOWN} more" if n > LINE_SHOWN else "")
+        return f"PASS: {what} shown no worse than allowed ({names}){suffix}"
     open_ = comp.by_verdict("inconclusive")
     shown = "; ".join(_config_brief(c) for c in open_[:LINE_SHOWN])
     head = (f"{len(open_)} of {what} neither shown no worse nor shown worse ({shown}"

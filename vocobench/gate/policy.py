@@ -1,4 +1,4 @@
-"""Gate policy: how much worse a candidate may be before a configuration is a regression.
+"""Gate policy: how much worse a candidate may be, which configurations decide, what is accepted.
 
 Default policy (our choice; the reasoning is given per line)
 ------------------------------------------------------------
@@ -17,10 +17,12 @@ Allowed drop of the mean, direction-aware, in the metric's own unit:
 * every other directed metric column: **2 % of the baseline mean** (a scale-free fallback).
 * RTF: **+10 %** (ratio of medians). Run-to-run timing noise on a quiet machine is a few percent
   (common practice, no source); beyond 10 % a latency budget visibly shrinks.
-* minimum **10 paired utterances** per configuration. With n utterances the smallest two-sided
-  exact Wilcoxon p-value is 2/2ⁿ (Wilcoxon 1945): 0.0625 for n = 5, so no regression could ever
-  be significant; with 10 it is 0.002, leaving room for Holm's correction over a grid. Bootstrap
-  intervals also under-cover on very small samples (Efron & Tibshirani 1993, Ch. 14, from memory).
+* minimum **10 paired utterances** per gated configuration; fewer, and the comparison is refused
+  before any statistic (exit 2, :mod:`vocobench.gate.gating`). With n utterances the smallest
+  one-sided p-value of an exact paired test is 2⁻ⁿ (Wilcoxon 1945): 0.03 for n = 5, no room for
+  a correction over several tests; with 10 it is 0.001, room for Holm's correction over about
+  50. Bootstrap bounds also under-cover on very small samples (Efron & Tibshirani 1993, Ch. 14,
+  from memory). More gated tests raise the minimum to ⌈log₂(m/α)⌉.
 * confidence **0.95** (common practice, no source): each gated (configuration, metric) cell is
   shown no worse at one-sided level 0.05, and the family of gated cells is shown worse with a
   family-wise error of at most 0.05 (decision rule: :mod:`vocobench.gate.verdict`).

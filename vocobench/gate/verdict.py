@@ -12,7 +12,8 @@ a relative allowance is taken of the paired baseline mean), ``c`` the policy's c
 
 * ``L``, ``U``: one-sided lower and upper bounds of mean(s), each at confidence ``c``;
 * ``p``: the p-value of H₀ "drop ≤ δ" against "drop > δ", read from the same draw by inverting
-  the upper bound (:func:`vocobench.inference.bootstrap_p`): ``p ≤ α`` exactly when ``U < −δ``;
+  the upper bound (:func:`vocobench.inference.bootstrap_p`): ``p ≤ α`` when ``U < −δ``, up to the
+  resampling's discreteness;
 * ``p_holm``: ``p`` Holm-adjusted over the ``m`` gated cells (Holm 1979, "A simple sequentially
   rejective multiple test procedure", Scand. J. Statist.).
 

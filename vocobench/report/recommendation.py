@@ -18,9 +18,9 @@ it to know which configuration a release ships (policy ``gated = "recommended"``
      "metrics": ["stoi", "logmel_l1"], "margins": {"stoi": 0.01, "logmel_l1": 0.15},
      "primary": "stoi", "rtf_budget": 0.05, "confidence": 0.95, "power": 0.9, "min_items": 10}
 
-Rule (a) status: ``named`` (a configuration is shown within the margins; the reference itself
-when it is the cheapest such), ``reference`` (no cheaper one is within the margins even on
-average: keep the reference), ``insufficient`` (cheaper ones are within on average, but the
+Rule (a) status: ``named`` (a cheaper configuration is shown within the margins),
+``reference`` (none cheaper is within the margins, even on average: the reference itself is
+named), ``insufficient`` (cheaper ones are within on average, but the
 test set cannot show it: none named), ``none`` (no configuration without failed items
 qualifies), ``withheld`` (too few utterances for any verdict). Rule (b) status: ``named``
 (shown better on the primary metric than every other configuration within the budget),
