@@ -1,18 +1,25 @@
-"""False-alarm rate and power of the regression gate, with fresh synthesis in every trial.
+"""False alarms, power and inconclusive rate of the regression gate, fresh synthesis per trial.
 
 Plain script: ``python bench/bench_gate_power.py [--trials K] [--workers N]``. Each trial
 synthesises the 30 demo utterance variants of ``bench/gate_power_study.py`` with the analytic
 denoiser (4 DDIM steps) for two baseline and two candidate seeds that no other trial uses, scores
 them (``pesq_wb``, ``stoi``) and runs :func:`vocobench.gate.compare_runs` with the default policy
-twice: baseline vs the same model ("fresh seeds", should pass) and baseline vs the candidate with
-white noise at 32.5 dB SNR added (about −0.1 PESQ, should be flagged). Trials are independent,
-so the counts are binomial; the script prints Clopper–Pearson 95 % intervals (Clopper & Pearson
-1934, "The use of confidence or fiducial limits…", Biometrika).
+(no recorded recommendation, so the one configuration is gated: 2 tests) against three
+candidates: the same model ("fresh seeds"), the model with white noise at 32.5 dB SNR (about
+−0.1 PESQ, twice the allowance) and at 37 dB (about −0.05 PESQ, the allowance itself). Every
+trial's outcome is pass, regression or inconclusive. Trials are independent, so each count is
+binomial; the script prints Clopper–Pearson 95 % intervals (Clopper & Pearson 1934, "The use of
+confidence or fiducial limits illustrated in the case of the binomial", Biometrika; computed by
+``scipy.stats.binomtest(...).proportion_ci(method="exact")``).
 
-Targets: pass rate under fresh seeds ≥ 95 %; flagged (pesq_wb regression) ≥ 90 %.
-K = 100 (default) puts the half-width of the interval near ±3–6 points at these rates; one trial
-costs about 13.5 s of CPU (180 PESQ+STOI scores, 120 syntheses), so 100 trials take
-≈ 12–17 min on two cores (measured: 60 trials in 10 min on two shared cores).
+Targets (the gate's issue): false alarms (regression under fresh seeds) ≤ 5 %; the 0.1 PESQ drop
+flagged (pesq_wb regression) ≥ 90 %. Reported besides: the inconclusive rates, and the pass rate
+at the allowance, which the intersection–union rule keeps at or below 5 % when the true drop is
+at least the allowance (Berger 1982).
+
+K = 100 (default) puts the half-width of an interval near ±3–6 points at these rates; one trial
+costs about 18 s of CPU (240 PESQ+STOI scores, 120 syntheses), so 100 trials take about
+15–20 min on two idle cores.
 """
 from __future__ import annotations
 
@@ -33,8 +40,11 @@ from scipy import stats as sst  # noqa: E402
 from vocobench.gate import compare_runs  # noqa: E402
 import gate_power_study as P  # noqa: E402
 
-TARGET_PASS = 0.95
+TARGET_FALSE_ALARM = 0.05
 TARGET_FLAG = 0.90
+OUTCOMES = ("pass", "regression", "inconclusive")
+LABELS = {"clean": "fresh seeds, same model", "degraded": "noise 32.5 dB (≈ −0.1 PESQ)",
+          "boundary": "noise 37 dB (≈ −0.05 PESQ)"}
 _STATE: dict = {}
 
 
@@ -46,19 +56,21 @@ def _init() -> None:
 
 def _trial(k: int) -> dict:
     syn, variants, man = _STATE["syn"], _STATE["variants"], _STATE["manifest"]
-    base, clean, worse = P.fresh_trial(syn, variants, k)
+    base, cands = P.fresh_trial(syn, variants, k)
     b = P.make_run(base, man, "baseline")
-    null = compare_runs(b, P.make_run(clean, man, "same model"))
-    flag = compare_runs(b, P.make_run(worse, man, "degraded"))
-    pesq = {m.column: m for m in flag.configs[0].metrics}["pesq_wb"]
-    return {"null_pass": null.verdict == "pass", "null_verdicts": [m.verdict for m in null.configs[0].metrics],
-            "flag_any": flag.verdict == "regression", "flag_pesq": pesq.verdict == "regression",
-            "drop_pesq": float((worse["pesq_wb"].mean() - clean["pesq_wb"].mean()))}
+    out: dict = {}
+    for cond, scores in cands.items():
+        comp = compare_runs(b, P.make_run(scores, man, cond))
+        cells = {m.column: m.verdict for m in comp.configs[0].metrics}
+        out[cond] = {"verdict": comp.verdict, "pesq": cells["pesq_wb"],
+                     "drop_pesq": float(cands["clean"]["pesq_wb"].mean() - scores["pesq_wb"].mean())}
+    return out
 
 
-def _ci(k: int, n: int) -> str:
-    ci = sst.binomtest(k, n).proportion_ci(confidence_level=0.95, method="exact")
-    return f"{k}/{n} = {k / n:.1%} [95 % CI {ci.low:.1%}, {ci.high:.1%}]"
+def ci(k: int, n: int) -> str:
+    """``k/n = rate [95 % CI low, high]`` by the Clopper–Pearson interval."""
+    c = sst.binomtest(k, n).proportion_ci(confidence_level=0.95, method="exact")
+    return f"{k}/{n} = {k / n:.1%} [95 % CI {c.low:.1%}, {c.high:.1%}]"
 
 
 def main(argv=None) -> int:
@@ -74,17 +86,19 @@ def main(argv=None) -> int:
             if i % 10 == 0 or i == a.trials:
                 print(f"  {i}/{a.trials} trials, {time.perf_counter() - t0:.0f} s", file=sys.stderr)
     n = len(out)
-    passes = sum(r["null_pass"] for r in out)
-    flags = sum(r["flag_pesq"] for r in out)
-    flags_any = sum(r["flag_any"] for r in out)
-    drop = np.mean([r["drop_pesq"] for r in out])
     print(f"trials: {n} (independent, fresh seeds), 30 utterances, 2 seeds a side, default policy")
-    print(f"fresh seeds, same model   pass:              {_ci(passes, n)}   target ≥ {TARGET_PASS:.0%}")
-    print(f"degraded (+noise 32.5 dB) pesq_wb regression: {_ci(flags, n)}   target ≥ {TARGET_FLAG:.0%}")
-    print(f"degraded                  any regression:    {_ci(flags_any, n)}")
-    print(f"realised mean PESQ drop of the degraded candidate: {drop:+.3f}")
+    for cond in P.CONDITIONS:
+        drop = np.mean([r[cond]["drop_pesq"] for r in out])
+        print(f"{LABELS[cond]} (realised mean PESQ drop {drop:+.3f}):")
+        for v in OUTCOMES:
+            print(f"    {v:<13} {ci(sum(r[cond]['verdict'] == v for r in out), n)}")
+        print(f"    pesq_wb cell regression {ci(sum(r[cond]['pesq'] == 'regression' for r in out), n)}")
+    false_alarms = sum(r["clean"]["verdict"] == "regression" for r in out)
+    flagged = sum(r["degraded"]["pesq"] == "regression" for r in out)
+    print(f"targets: false alarms ≤ {TARGET_FALSE_ALARM:.0%} (got {false_alarms / n:.1%}); "
+          f"0.1 PESQ drop flagged ≥ {TARGET_FLAG:.0%} (got {flagged / n:.1%})")
     print(f"wall {time.perf_counter() - t0:.0f} s, main-process CPU {time.process_time() - c0:.1f} s")
-    return 0 if passes / n >= TARGET_PASS and flags / n >= TARGET_FLAG else 1
+    return 0 if false_alarms / n <= TARGET_FALSE_ALARM and flagged / n >= TARGET_FLAG else 1
 
 
 if __name__ == "__main__":

@@ -5,7 +5,9 @@ vocobench/gate/compare.py and vocobench/gate/baseline.py (our own contracts); re
 libraries for the statistics (scipy.stats.wilcoxon, scipy.stats.bootstrap); the common Ant/Jenkins
 JUnit XML layout (testsuite@name,tests,failures,errors,skipped; testcase@name,classname;
 <failure>/<skipped> children — common practice, no single published standard); exit codes from
-vocobench/cli.py (0 no regression, 1 regression, 2 unusable input).
+vocobench/gate/cli.py (0 pass, 1 regression, 2 unusable input, 3 inconclusive). The runs use
+12 of the demo recordings: enough for the default policy (min_items 10; 2^-12 below Holm's
+first threshold), so most checks run at the defaults.
 """
 from __future__ import annotations
 
@@ -30,7 +32,7 @@ from vocobench.store import load_run
 from vocobench.sweep import run
 
 DEMO = Path(__file__).resolve().parent.parent / "scenarios" / "pier-announcements" / "testset"
-ALL6 = [f"pier0{i}.wav" for i in range(1, 7)]
+ALL12 = [f"pier{i:02d}.wav" for i in range(1, 13)]
 
 
 def _config(root: Path, name: str, files, steps=(1, 4), extra: str = "", target=None) -> Path:
@@ -63,8 +65,8 @@ save_audio = "none"
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory):
     root = tmp_path_factory.mktemp("gate")
-    a = run(load_config(_config(root, "a", ALL6)), root / "run_a", progress=False, report=False)
-    small = run(load_config(_config(root, "small", ALL6[:3])), root / "run_small", progress=False,
+    a = run(load_config(_config(root, "a", ALL12)), root / "run_a", progress=False, report=False)
+    small = run(load_config(_config(root, "small", ALL12[:3])), root / "run_small", progress=False,
                 report=False)
     return {"root": root, "a": a, "small": small}
 
@@ -99,15 +101,17 @@ def test_freeze_then_compare_with_original_gives_pass_and_zero_differences(runs,
     original = load_run(runs["a"])
     assert len(doc["items"]) == len(original.items)
     for b, c in ((out, runs["a"]), (runs["a"], out)):
-        comp = compare_runs(b, c, Policy(min_items=2))
+        comp = compare_runs(b, c)
         assert comp.verdict == "pass" and comp.exit_code == 0
         assert [c.verdict for c in comp.configs] == ["pass"] * len(original.manifest["grid"])
         for cfg in comp.configs:
             assert cfg.new_failures == 0 and cfg.missing == 0
             for m in cfg.metrics:
-                assert m.n == 6
+                assert m.n == 12
                 assert m.diff == 0.0 and m.diff_low == 0.0 and m.diff_high == 0.0
-    assert cli_main(["compare", str(out), str(runs["a"]), "--min-items", "2"]) == 0
+    # the baseline carries the run's recommendation (format vocobench-recommendation/1)
+    assert doc["recommendation"]["format"] == "vocobench-recommendation/1"
+    assert cli_main(["compare", str(out), str(runs["a"])]) == 0
     assert capsys.readouterr().out.startswith("PASS:")
 
 
@@ -130,16 +134,35 @@ def test_different_test_sets_exit_2_with_one_line_reason(runs, capsys):
     assert fp_a in err
 
 
-def test_force_compares_common_utterances_and_says_so(runs):
-    comp = compare_runs(runs["a"], runs["small"], Policy(min_items=2), force=True)
-    assert any("different test sets" in f for f in comp.forced)
-    assert all(m.n == 3 for c in comp.configs for m in c.metrics)   # the 3 shared recordings
+def test_force_compares_the_common_part_and_says_so(runs, tmp_path):
+    cand = _copy(runs["a"], tmp_path / "cand")
+    man = json.loads((cand / "manifest.json").read_text())
+    man["length_policy"] = {**man["length_policy"], "mode": "pad"}
+    (cand / "manifest.json").write_text(json.dumps(man))
+    with pytest.raises(InputError, match="different length policies"):
+        compare_runs(runs["a"], cand)
+    comp = compare_runs(runs["a"], cand, force=True)
+    assert any("different length policies" in f for f in comp.forced)
+    assert all(m.n == 12 for c in comp.configs for m in c.metrics)
     assert "forced despite" in verdict_line(comp)
     assert "--force" in markdown(comp)
 
 
+def test_forced_comparison_on_too_few_shared_utterances_is_refused_with_the_figures(runs, capsys):
+    # Only the 3 recordings of the small run are shared. Smallest exact paired p-value on 3
+    # differences: 2^-3 = 0.125 (Wilcoxon 1945: all signs equal), above α/m = 0.05/4: no
+    # regression could ever be shown, so the gate refuses (exit 2) instead of passing.
+    with pytest.raises(InputError) as e:
+        compare_runs(runs["a"], runs["small"], force=True)
+    msg = str(e.value)
+    assert "too small" in msg and "3 paired utterances" in msg and "2^-3 = 0.125" in msg
+    assert "0.05/4 = 0.0125" in msg and "at least 10" in msg
+    assert cli_main(["compare", str(runs["a"]), str(runs["small"]), "--force"]) == 2
+    assert "too small" in capsys.readouterr().err
+
+
 def test_different_grid_refused_unless_configurations_are_matched(runs, tmp_path):
-    other = run(load_config(_config(tmp_path, "b", ALL6, steps=(1, 2))), tmp_path / "run_b",
+    other = run(load_config(_config(tmp_path, "b", ALL12, steps=(1, 2))), tmp_path / "run_b",
                 progress=False, report=False)
     with pytest.raises(InputError, match="different configurations"):
         compare_runs(runs["a"], other)
@@ -152,8 +175,8 @@ def test_different_grid_refused_unless_configurations_are_matched(runs, tmp_path
 def test_same_id_different_content_does_not_pair(runs, tmp_path):
     cand = _copy(runs["a"], tmp_path / "cand")
     _rewrite_items(cand, lambda r: {**r, "utt_sha": "0" * 16} if r["utt_id"] == "pier02" else r)
-    comp = compare_runs(runs["a"], cand, Policy(min_items=2))
-    assert all(m.n == 5 for c in comp.configs for m in c.metrics)
+    comp = compare_runs(runs["a"], cand)
+    assert all(m.n == 11 for c in comp.configs for m in c.metrics)
     assert all(c.missing == 2 for c in comp.configs)               # pier02 × 2 seeds, per config
 
 
@@ -176,7 +199,7 @@ def test_new_failed_item_is_a_regression_and_exit_1(runs, tmp_path, capsys):
     assert verdicts["uniform/ddim/1"].verdict != "regression"
     assert comp.exit_code == 1
     line = verdict_line(comp)
-    assert line.startswith("REGRESSION: 1 of 2 configurations worse") and "new failed item" in line
+    assert line.startswith("REGRESSION: 1 of 2 gated configurations worse") and "new failed item" in line
     assert cli_main(["compare", str(runs["a"]), str(cand)]) == 1
     assert capsys.readouterr().out.startswith("REGRESSION:")
     with pytest.raises(AssertionError) as exc:
@@ -190,8 +213,9 @@ def test_junit_xml_has_one_testcase_per_configuration(runs, tmp_path):
     _rewrite_items(cand, lambda r: {**r, "status": "failed", "failure": "injected"}
                    if (r["utt_id"], r["steps"]) == ("pier01", 1) else r)
     path = tmp_path / "gate.xml"
-    # default min_items 10 > 6 utterances: the configuration without failures is inconclusive
-    assert cli_main(["compare", str(runs["a"]), str(cand), "--junit", str(path)]) == 1
+    # gated: the 1-step configuration only; the 4-step one is information (a skipped case)
+    assert cli_main(["compare", str(runs["a"]), str(cand), "--junit", str(path),
+                     "--gate", "uniform/ddim/1"]) == 1
     root = ET.parse(path).getroot()
     suites = [root] if root.tag == "testsuite" else root.findall("testsuite")
     assert root.tag in ("testsuites", "testsuite") and len(suites) == 1
@@ -208,30 +232,40 @@ def test_junit_xml_has_one_testcase_per_configuration(runs, tmp_path):
     assert int(suite.get("errors")) == 0
     assert failures[0].get("name") == "uniform/ddim/1"
     assert failures[0].find("failure").get("message")
+    assert "information, not gated" in skipped[0].find("skipped").get("message")
 
 
 def test_paired_statistics_match_scipy_on_a_cheaper_setting(runs):
     # Compare 1 step against 4 steps of the same run (same seeds: common random numbers).
-    policy = Policy(min_items=6, allow={"stoi": parse_allow_option("stoi=0")[1]})
+    policy = Policy(allow={"stoi": parse_allow_option("stoi=0")[1]})
     comp = compare_runs(runs["a"], runs["a"], policy, match={"uniform/ddim/4": "uniform/ddim/1"})
     m = {x.column: x for x in comp.configs[0].metrics}["stoi"]
     items = load_run(runs["a"]).items
     per = items.groupby(["steps", "utt_id"])["stoi"].mean()
     d = (per.loc[1] - per.loc[4]).to_numpy()
-    assert m.n == 6 and m.diff == pytest.approx(d.mean(), abs=1e-12)
-    # reference library: scipy.stats.wilcoxon (Wilcoxon 1945), two-sided, defaults
-    assert m.p == pytest.approx(sst.wilcoxon(d).pvalue, rel=1e-12)
+    assert m.n == 12 and m.diff == pytest.approx(d.mean(), abs=1e-12)
+    assert m.sd == pytest.approx(np.std(d, ddof=1), rel=1e-12)
     # reference library: scipy.stats.bootstrap, BCa (Efron 1987), one-sided at 0.95, seed 0
-    up = sst.bootstrap((d,), np.mean, n_resamples=2000, confidence_level=0.95, method="BCa",
-                       alternative="less", rng=np.random.default_rng(0)).confidence_interval.high
-    assert m.diff_high == pytest.approx(up, rel=1e-9)
-    # Rule (gate/compare.py) applied by hand with allowance 0 and one configuration (Holm = raw p)
-    expect = "regression" if up < 0 and sst.wilcoxon(d).pvalue <= 0.05 else \
-        "inconclusive" if up < 0 else None
-    if expect:
-        assert m.verdict == expect
-    else:
-        assert m.verdict in ("pass", "improvement")
+    boot = dict(n_resamples=2000, method="BCa", rng=np.random.default_rng(0))
+    up = sst.bootstrap((d,), np.mean, confidence_level=0.95, alternative="less", **boot)
+    low = sst.bootstrap((d,), np.mean, confidence_level=0.95, alternative="greater",
+                        rng=np.random.default_rng(0), n_resamples=2000, method="BCa")
+    assert m.diff_high == pytest.approx(up.confidence_interval.high, rel=1e-9)
+    assert m.diff_low == pytest.approx(low.confidence_interval.low, rel=1e-9)
+    # p of "drop > 0" read from the same draw: scipy's one-sided BCa bound at confidence 1 − p
+    # sits at the threshold 0 (test–interval duality), when p is not at its floor 1/(B + 1)
+    if 0.002 < m.p < 0.5:
+        at = sst.bootstrap((d,), np.mean, confidence_level=1 - m.p, alternative="less",
+                           rng=np.random.default_rng(0), n_resamples=2000, method="BCa")
+        assert abs(at.confidence_interval.high) <= 0.02 * np.std(d, ddof=1)
+    # Holm 1979 over the 2 gated cells (stoi, pesq_wb) by hand
+    other = {x.column: x for x in comp.configs[0].metrics}["pesq_wb"]
+    lo_p, hi_p = sorted([m.p, other.p])
+    expect_holm = min(1.0, 2 * lo_p) if m.p == lo_p else max(min(1.0, 2 * lo_p), hi_p)
+    assert m.p_holm == pytest.approx(expect_holm)
+    # the rule of vocobench/gate/verdict.py by hand, allowance 0 (higher STOI is better)
+    expect = ("pass" if m.diff_low > 0 else "regression" if m.p_holm <= 0.05 else "inconclusive")
+    assert m.verdict == expect
 
 
 def test_hardware_difference_makes_latency_not_comparable(runs, tmp_path):
@@ -239,22 +273,24 @@ def test_hardware_difference_makes_latency_not_comparable(runs, tmp_path):
     man = json.loads((cand / "manifest.json").read_text())
     man["hardware"]["processor"] = "Some Other CPU @ 1.0GHz"
     (cand / "manifest.json").write_text(json.dumps(man))
-    comp = compare_runs(runs["a"], cand, Policy(min_items=2))
+    comp = compare_runs(runs["a"], cand)
     assert {c.latency.verdict for c in comp.configs} == {"not comparable"}
     assert all("processor" in c.latency.reason for c in comp.configs)
     assert comp.verdict == "pass"                   # quality unchanged: latency alone cannot decide
     assert "latency not comparable" in verdict_line(comp)
-    same = compare_runs(runs["a"], runs["a"], Policy(min_items=2))
+    same = compare_runs(runs["a"], runs["a"])
     assert all(c.latency.verdict != "not comparable" for c in same.configs)
 
 
 def test_markdown_and_json_outputs(runs, tmp_path):
     md, js = tmp_path / "s.md", tmp_path / "s.json"
-    assert cli_main(["compare", str(runs["a"]), str(runs["a"]), "--min-items", "2",
+    assert cli_main(["compare", str(runs["a"]), str(runs["a"]),
                      "--markdown", str(md), "--json", str(js)]) == 0
     text = md.read_text()
     assert text.startswith("### vocobench compare: ✅ PASS") and "| configuration |" in text
+    assert "smallest drop this test can show" in text
     doc = json.loads(js.read_text())
+    assert doc["format"] == "vocobench-compare/2"
     assert doc["verdict"] == "pass" and doc["exit_code"] == 0
     assert len(doc["configurations"]) == 2
 
@@ -263,10 +299,13 @@ def test_markdown_and_json_outputs(runs, tmp_path):
 
 def test_policy_file_options_and_errors(tmp_path):
     p = tmp_path / "policy.toml"
-    p.write_text('min_items = 12\nmax_rtf_increase_pct = 5\n[allow]\npesq_wb = 0.1\nlsd = "3%"\n'
+    p.write_text('min_items = 12\nmax_rtf_increase_pct = 5\naccept_inconclusive = true\n'
+                 'gated = ["cosine/ddim/6"]\n[allow]\npesq_wb = 0.1\nlsd = "3%"\n'
                  '[bootstrap]\nn_resamples = 500\n')
     pol = load_policy(p)
     assert pol.min_items == 12 and pol.max_rtf_increase_pct == 5 and pol.n_resamples == 500
+    assert pol.accept_inconclusive is True and pol.gated == ("cosine/ddim/6",)
+    assert Policy().gated == "recommended" and Policy().accept_inconclusive is False
     assert pol.allowance("pesq_wb").margin(3.0) == 0.1
     assert pol.allowance("lsd").margin(-2.0) == pytest.approx(0.06)      # 3 % of |mean|
     assert pol.allowance("stoi").margin(0.9) == 0.01                      # default kept
@@ -274,6 +313,12 @@ def test_policy_file_options_and_errors(tmp_path):
     p.write_text("min_item = 3\n")
     with pytest.raises(InputError, match="unknown key"):
         load_policy(p)
+    for bad, field in (('gated = "some"', "gated"), ('gated = ["cosine-ddim-6"]', "gated"),
+                       ('accept_inconclusive = "yes"', "accept_inconclusive"), ("power = 1.5", "power")):
+        p.write_text(bad + "\n")
+        with pytest.raises(InputError) as e:
+            load_policy(p)
+        assert e.value.field == field and e.value.source == str(p)
     with pytest.raises(InputError):
         parse_allow_option("pesq_wb=-0.1")
     with pytest.raises(InputError):
@@ -305,8 +350,8 @@ class SlowDenoiser(AnalyticDenoiser):
 
 def test_ab_mode_flags_a_slower_candidate(tmp_path, capsys):
     (tmp_path / "slow.py").write_text(SLOW)
-    base = _config(tmp_path, "fast", ALL6[:1], steps=(2,))
-    cand = _config(tmp_path, "slow", ALL6[:1], steps=(2,), target="slow.py:SlowDenoiser")
+    base = _config(tmp_path, "fast", ALL12[:1], steps=(2,))
+    cand = _config(tmp_path, "slow", ALL12[:1], steps=(2,), target="slow.py:SlowDenoiser")
     js = tmp_path / "ab.json"
     code = cli_main(["compare", "--ab", str(base), str(cand), "--repeats", "4", "-q", "--json", str(js)])
     assert capsys.readouterr().out.startswith("REGRESSION:")
@@ -318,15 +363,15 @@ def test_ab_mode_flags_a_slower_candidate(tmp_path, capsys):
     # 2 network calls × 30 ms of sleep per synthesis: the candidate's RTF exceeds the baseline's
     # by at least the sleep over the audio duration (time.sleep suspends for at least the
     # requested time: Python documentation, time.sleep)
-    dur = sf.info(str(DEMO / ALL6[0])).duration
+    dur = sf.info(str(DEMO / ALL12[0])).duration
     assert lat["candidate_rtf"] - lat["baseline_rtf"] >= 2 * 0.03 / dur * 0.9
     assert lat["ratio_low"] > 1.1 and cfg["verdict"] == "regression"
 
 
 def test_ab_mode_checks_stored_features(tmp_path):
     # A/B loads features as the sweep does: stored ones must have the front-end's mel bands
-    base = _config(tmp_path, "fast", ALL6[:1], steps=(2,))
-    cand = _config(tmp_path, "bad", ALL6[:1], steps=(2,))
+    base = _config(tmp_path, "fast", ALL12[:1], steps=(2,))
+    cand = _config(tmp_path, "bad", ALL12[:1], steps=(2,))
     ts = tmp_path / "ts_bad"
     np.save(ts / "pier01.npy", np.zeros((40, 200), dtype=np.float32))
     (ts / "manifest.csv").write_text("id,path,features\npier01,pier01.wav,pier01.npy\n")

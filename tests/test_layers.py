@@ -23,7 +23,7 @@ LAYERS: dict[str, int] = {
     "contracts": 2, "analytic": 2, "torch_model": 2, "torch_adapter": 2, "torch_analytic": 2,
     "config": 2,
     "check": 3,
-    "runtables": 4, "stats": 4,
+    "runtables": 4, "stats": 4, "inference": 4,
     "report": 5,
     "sweep": 6,
     "search": 7,

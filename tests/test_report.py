@@ -22,7 +22,10 @@ from vocobench.errors import InputError  # noqa: E402
 from vocobench.report import ReportOptions, render_report  # noqa: E402
 from vocobench.report import cli  # noqa: E402
 
-FAST = dict(resamples=300, plots=False, page=False)
+# The fixture has 4 utterances: below the default decide.min_items (10), and 2^-4 = 0.0625 is
+# above α = 0.05, so at the defaults nothing may be recommended (test_too_few_utterances_...).
+# The rule tests lower both bars: min_items 4, confidence 0.9 (2^-4 ≤ 0.1).
+FAST = dict(resamples=300, plots=False, page=False, min_items=4, confidence=0.9)
 MARGINS = {"mcd_db": 0.5, "pesq_wb": 0.1}
 
 
@@ -192,7 +195,8 @@ def test_decide_table_in_manifest_is_the_default(tmp_path):
     # are passed; hand: reference 32 → 16 (MCD d vs 32 = (0.15, 0.2, 0.25, 0.2) ≤ 0.25 < 0.5;
     # PESQ d vs 32 = (−0.01, −0.03, −0.03, −0.03) > −0.1) is the cheapest inside the margins.
     run = make_run(tmp_path, decide={"reference": "linear/ddim/32", "margins": MARGINS,
-                                     "plots": False, "page": False, "resamples": 300})
+                                     "plots": False, "page": False, "resamples": 300,
+                                     "min_items": 4, "confidence": 0.9})
     res = render_report(run, echo=False)
     assert res.decision.reference == "linear/ddim/32"
     assert res.decision.cheapest == "linear/ddim/16"
@@ -209,7 +213,8 @@ def test_cli_flags_override_and_bad_input_exits_2(run_dir, capsys):
     out = io.StringIO()
     with redirect_stdout(out):
         rc = cli.main(_args(str(run_dir), "--reference", "linear/ddim/32", "--margin", "mcd_db=0.5",
-                            "--margin", "pesq_wb=0.1", "--resamples", "300", "--no-plots", "--no-page"))
+                            "--margin", "pesq_wb=0.1", "--resamples", "300", "--no-plots", "--no-page",
+                            "--min-items", "4", "--confidence", "0.9"))
     assert rc == 0
     text = out.getvalue()
     assert "Quality against latency" in text and "ref reference: linear/ddim/32" in text

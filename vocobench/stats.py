@@ -98,13 +98,21 @@ def bootstrap_mean_intervals(x: Sequence[float], settings: BootstrapSettings,
     computed from that distribution (``scipy.stats.bootstrap(..., n_resamples=0,
     bootstrap_result=...)``), so each result equals a separate call with the same seed.
     """
+    return bootstrap_mean_draw(x, settings, alternatives)[0]
+
+
+def bootstrap_mean_draw(x: Sequence[float], settings: BootstrapSettings, alternatives: Sequence[str]
+                        ) -> tuple[list[tuple[float, float]], np.ndarray]:
+    """:func:`bootstrap_mean_intervals` and the bootstrap distribution of the mean they come
+    from (empty for fewer than two values or a constant sample)."""
     a = np.asarray(x, dtype=np.float64)
     a = a[np.isfinite(a)]
     if a.size < 2:
-        return [(np.nan, np.nan) for _ in alternatives]
+        return [(np.nan, np.nan) for _ in alternatives], np.empty(0)
     if np.ptp(a) == 0.0:
         c = float(a[0])
-        return [{"less": (-np.inf, c), "greater": (c, np.inf)}.get(alt, (c, c)) for alt in alternatives]
+        return ([{"less": (-np.inf, c), "greater": (c, np.inf)}.get(alt, (c, c))
+                 for alt in alternatives], np.empty(0))
     res = None
     out = []
     for alternative in alternatives:
@@ -121,7 +129,7 @@ def bootstrap_mean_intervals(x: Sequence[float], settings: BootstrapSettings,
             if not (np.isnan(lo) or np.isnan(hi)):
                 break
         out.append((lo, hi))
-    return out
+    return out, np.asarray(res.bootstrap_distribution, dtype=np.float64)
 
 
 def wilcoxon_p(d: Sequence[float]) -> float:
@@ -188,7 +196,9 @@ class PairedResult:
     ``diff_low, diff_high``: two-sided bootstrap interval of mean(d) at the settings' confidence;
     ``bound_lower, bound_upper``: the one-sided bounds, each at that confidence (together a
     ``2·confidence − 1`` interval); ``p``: two-sided Wilcoxon p-value of d; ``p_holm``: ``p``
-    Holm-adjusted over a family (:func:`holm_family`), NaN until then.
+    Holm-adjusted over a family (:func:`holm_family`), NaN until then. ``d`` (the paired
+    differences) and ``boot`` (the bootstrap distribution of mean(d) behind every bound) are
+    kept for tests read from the same draw (:func:`vocobench.inference.bootstrap_p`).
     """
 
     n: int
@@ -202,6 +212,13 @@ class PairedResult:
     p: float
     higher_is_better: bool
     p_holm: float = np.nan
+    d: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False, compare=False)
+    boot: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False, compare=False)
+
+    @property
+    def sd(self) -> float:
+        """Standard deviation of the paired differences (ddof 1; NaN for fewer than two)."""
+        return float(np.std(self.d, ddof=1)) if self.d.size >= 2 else np.nan
 
     @property
     def worse_bound(self) -> float:
@@ -227,13 +244,14 @@ def paired_comparison(base: pd.Series | Sequence[float], cand: pd.Series | Seque
     pair = pair[np.isfinite(pair.to_numpy(dtype=np.float64)).all(axis=1)]
     d = (pair["c"] - pair["b"]).to_numpy(dtype=np.float64)
     n = int(d.size)
-    (lo, hi), (low, _), (_, high) = bootstrap_mean_intervals(d, settings, ("two-sided", "greater", "less"))
+    ((lo, hi), (low, _), (_, high)), boot = bootstrap_mean_draw(d, settings,
+                                                               ("two-sided", "greater", "less"))
     nan = np.nan
     return PairedResult(n=n, base_mean=float(pair["b"].mean()) if n else nan,
                         cand_mean=float(pair["c"].mean()) if n else nan,
                         diff=float(d.mean()) if n else nan, diff_low=float(lo), diff_high=float(hi),
                         bound_lower=float(low), bound_upper=float(high), p=float(wilcoxon_p(d)),
-                        higher_is_better=bool(higher_is_better))
+                        higher_is_better=bool(higher_is_better), d=d, boot=boot)
 
 
 def holm_family(results: Sequence[PairedResult]) -> list[PairedResult]:

@@ -1,7 +1,9 @@
 """Release regression gate: is the candidate vocoder (or sampler setting) worse than the baseline?
 
-* :func:`compare_runs` — paired, per-configuration verdicts between two stored runs or frozen
-  baselines (rule in :mod:`vocobench.gate.compare`, thresholds in :mod:`vocobench.gate.policy`);
+* :func:`compare_runs` — pass, regression or inconclusive between two stored runs or frozen
+  baselines (decision rule in :mod:`vocobench.gate.verdict`, gated set and size check in
+  :mod:`vocobench.gate.gating`, thresholds in :mod:`vocobench.gate.policy`);
+* :func:`plan_size` — utterances needed to detect a given drop, from a pilot run's spread;
 * :func:`ab_compare` — interleaved A/B latency of two configs on this machine;
 * :func:`freeze` / :func:`load_side` — compact ``vocobench-baseline/1`` files;
 * :func:`assert_no_regression` — for a user's own pytest suite;
@@ -18,7 +20,8 @@ _EXPORTS = {
     "load_side": "baseline", "Comparison": "compare", "ConfigResult": "compare",
     "MetricResult": "compare", "compare_runs": "compare", "parse_match": "compare",
     "LatencyResult": "latency", "junit": "outputs", "markdown": "outputs", "to_json": "outputs",
-    "verdict_line": "outputs", "DEFAULT_ALLOW": "policy", "Allowance": "policy",
+    "resolution_lines": "outputs", "verdict_line": "outputs", "SizePlan": "plan",
+    "plan_size": "plan", "DEFAULT_ALLOW": "policy", "Allowance": "policy",
     "Policy": "policy", "load_policy": "policy", "assert_no_regression": "pytest_helper",
 }
 
@@ -37,6 +40,7 @@ def ab_compare(*args, **kwargs):  # type: ignore[no-untyped-def]
 
 
 __all__ = ["BASELINE_FORMAT", "DEFAULT_ALLOW", "Allowance", "Comparison", "ConfigResult",
-           "LatencyResult", "MetricResult", "Policy", "ab_compare", "assert_no_regression",
-           "compare_runs", "freeze", "junit", "load_baseline", "load_policy", "load_side",
-           "markdown", "parse_match", "to_json", "verdict_line"]
+           "LatencyResult", "MetricResult", "Policy", "SizePlan", "ab_compare",
+           "assert_no_regression", "compare_runs", "freeze", "junit", "load_baseline",
+           "load_policy", "load_side", "markdown", "parse_match", "plan_size", "resolution_lines",
+           "to_json", "verdict_line"]

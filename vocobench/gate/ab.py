@@ -96,7 +96,7 @@ def ab_compare(baseline: "RunConfig | str | Path", candidate: "RunConfig | str |
             res.latency = LatencyResult(verdict, float(np.median(a_rtf)), float(np.median(b_rtf)), r,
                                         lo, hi, len(a_rtf), len(b_rtf), "A/B", why)
             config_verdict(res, pol)
-            if res.verdict == "improvement":         # no metric names it: give the latency's reason
+            if verdict == "improvement":             # no metric names it: give the latency's reason
                 res.reasons = [why]
             raw[res.name] = {"baseline_rtf": a_rtf, "candidate_rtf": b_rtf}
             results.append(res)

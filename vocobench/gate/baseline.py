@@ -5,8 +5,13 @@ Format ``vocobench-baseline/1`` (JSON; gzip-compressed when the file name ends i
     {"format": "vocobench-baseline/1", "vocobench_version": ..., "created_utc": ...,
      "source": {"run_dir": ..., "run_created_utc": ...},
      "manifest": {...the run's manifest, without job_keys...},
+     "recommendation": {...the run's report/recommendation.json...} | null,
      "items": [...one journal record per item, without audio paths...],
      "timing": [...the timing journal...]}
+
+The recommendation (format in :mod:`vocobench.report.recommendation`) tells ``compare`` which
+configuration ships (policy ``gated = "recommended"``); a run without a recorded one (``--no-report``)
+gets it computed at freeze time from its ``[decide]`` options, nothing written into the run.
 
 Items and timing are the records ``store.load_run`` keeps (last record per key, current job
 keys only), so comparing a baseline with the run it was frozen from gives zero differences.
@@ -26,12 +31,19 @@ import pandas as pd
 
 from .. import __version__
 from ..errors import InputError
+from ..report.decide import recommend
+from ..report.recommendation import (RECOMMENDATION_FILE, check_recommendation,
+                                     read_recommendation, recommendation_document)
+from ..report.render import check_options, options_for
+from ..report.table import build_table
+from ..stats import BootstrapSettings, summarise
 from ..store import ITEM_ORDER, Run, dumps, items_frame, load_run, write_atomic
 
 BASELINE_FORMAT = "vocobench-baseline/1"
 GZIP_MAGIC = b"\x1f\x8b"
 DROPPED_ITEM_FIELDS = ("audio_path",)          # audio is not part of a baseline
 DROPPED_MANIFEST_FIELDS = ("job_keys",)        # the items are already filtered to the run's jobs
+BASELINE_KEY = "recommendation"   # the baseline's top-level key, kept in the loaded manifest
 
 
 def _plain(v: Any) -> Any:
@@ -78,13 +90,34 @@ def timing_records(run: Run) -> list[dict[str, Any]]:
     return [{k: _plain(v) for k, v in r.items()} for r in t.to_dict(orient="records")]
 
 
+def run_recommendation(run: Run) -> dict[str, Any] | None:
+    """The run's ``report/recommendation.json``, else the recommendation its ``[decide]``
+    options give now (``None`` when the run has no metric values)."""
+    path = Path(run.path) / RECOMMENDATION_FILE
+    if path.is_file():
+        return read_recommendation(path)
+    opts = options_for(run, None)
+    st = summarise(run, reference=check_options(opts, run),
+                   settings=BootstrapSettings(opts.confidence, opts.resamples, opts.seed, opts.method),
+                   reference_source=opts.source, reference_field="decide.reference")
+    if not st.columns:
+        return None
+    valued = tuple(c for c in st.columns
+                   if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
+    if opts.metrics is None and valued:
+        opts = opts.replace(metrics=valued)
+    decision = recommend(st, build_table(st), opts) if opts.metrics else None
+    return recommendation_document(decision, opts)
+
+
 def baseline_text(run: Run) -> str:
     """The baseline document for a loaded run (one record per line)."""
     manifest = {k: v for k, v in run.manifest.items() if k not in DROPPED_MANIFEST_FIELDS}
     head = {"format": BASELINE_FORMAT, "vocobench_version": __version__,
             "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
             "source": {"run_dir": str(run.path), "run_created_utc": run.manifest.get("created_utc")}}
-    parts = [dumps(head)[:-1], ', "manifest": ', dumps(manifest)]
+    parts = [dumps(head)[:-1], ', "manifest": ', dumps(manifest),
+             f',\n"{BASELINE_KEY}": ', dumps(run_recommendation(run))]
     for name, recs in (("items", item_records(run)), ("timing", timing_records(run))):
         body = ",\n".join(dumps(r) for r in recs)
         parts.append(f',\n"{name}": [\n{body}\n]' if recs else f',\n"{name}": []')
@@ -134,7 +167,10 @@ def load_baseline(path: str | Path) -> Run:
     if not isinstance(manifest, Mapping) or not isinstance(items, list) or not isinstance(timing, list):
         raise InputError("baseline lacks manifest/items/timing", source=src)
     frame = items_frame(items) if items else pd.DataFrame()
-    return Run(path, dict(manifest), frame, pd.DataFrame(timing))
+    manifest = dict(manifest)
+    if doc.get(BASELINE_KEY) is not None:
+        manifest[BASELINE_KEY] = check_recommendation(doc[BASELINE_KEY], f"{src}: {BASELINE_KEY}")
+    return Run(path, manifest, frame, pd.DataFrame(timing))
 
 
 def load_side(side: "str | Path | Run") -> Run:

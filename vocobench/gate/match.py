@@ -164,7 +164,8 @@ def parse_match(texts: Iterable[str]) -> dict[str, str]:
 
 def config_items(bi: pd.DataFrame, ci: pd.DataFrame, b: ConfigKey, c: ConfigKey,
                  matched_seeds: bool) -> ConfigResult:
-    """Item counts of one configuration pair: items, failures, new failures, missing items."""
+    """Item counts of one configuration pair: items, failures, new failures, missing items and
+    paired utterances (an ``ok`` item on both sides)."""
     xb, xc = bi[bi[CFG] == b.label], ci[ci[CFG] == c.label]
     res = ConfigResult(b.label, c.label, items_baseline=len(xb), items_candidate=len(xc),
                        failed_baseline=int((~xb["_ok"]).sum()), failed_candidate=int((~xc["_ok"]).sum()))
@@ -175,4 +176,5 @@ def config_items(bi: pd.DataFrame, ci: pd.DataFrame, b: ConfigKey, c: ConfigKey,
     res.missing = int(both["c"].isna().sum())
     both = both.dropna()
     res.new_failures = int((both["b"].astype(bool) & ~both["c"].astype(bool)).sum())
+    res.paired = len(set(xb.loc[xb["_ok"], UKEY]) & set(xc.loc[xc["_ok"], UKEY]))
     return res

@@ -1,6 +1,7 @@
 """Renderings of a :class:`~vocobench.gate.compare.Comparison`: one verdict line, a Markdown
 summary for a pull-request comment, JSON, and JUnit XML (one test case per configuration:
-``<failure>`` for a regression, ``<skipped>`` for an inconclusive one).
+``<failure>`` for a gated regression or a gated inconclusive one, ``<skipped>`` for an accepted
+inconclusive one and for configurations that are information only).
 
 The JUnit layout follows the widely used Ant/Jenkins JUnit XML schema (``testsuites`` →
 ``testsuite@name,tests,failures,errors,skipped,time`` → ``testcase@name,classname,time``;
@@ -19,32 +20,64 @@ from ..store import dumps, write_atomic
 from ..textfmt import fmt_signed, md_cell, md_table, signed_interval
 from .verdict import Comparison, ConfigResult, MetricResult
 
-LINE_SHOWN = 3                  # regressions named in the verdict line
+LINE_SHOWN = 3                  # configurations named in the verdict line
 
 
 def _config_brief(c: ConfigResult) -> str:
     return f"{c.name} " + ", ".join(c.reasons[:2]) if c.reasons else c.name
 
 
+def _plural(n: int, word: str) -> str:
+    return f"{n} {word}{'s' * (n != 1)}"
+
+
 def verdict_line(comp: Comparison) -> str:
-    """One line: ``REGRESSION: 2 of 30 configurations worse (…)`` or ``PASS: …``."""
-    n, k = len(comp.configs), comp.counts()
-    what = "configurations" if n != 1 else "configuration"
-    others = ", ".join(f"{k[v]} {label}" for v, label in
-                       (("pass", "pass"), ("improvement", "improved"), ("inconclusive", "inconclusive"))
-                       if k[v])
+    """One line: ``REGRESSION: …``, ``PASS: …`` or ``INCONCLUSIVE: …`` (accepted or not)."""
+    gated, info = comp.gated, comp.information
+    n = len(gated)
     tail = []
+    if info:
+        tail.append(f"{len(info)} more compared as information, not gated")
     if comp.mode == "runs" and comp.latency_note:
         tail.append(comp.latency_note)
     if comp.forced:
         tail.append("forced despite: " + "; ".join(comp.forced))
     suffix = ("; " + "; ".join(tail)) if tail else ""
+    what = _plural(n, "gated configuration")
     if comp.verdict == "regression":
         bad = comp.by_verdict("regression")
         shown = "; ".join(_config_brief(c) for c in bad[:LINE_SHOWN])
         more = f"; and {len(bad) - LINE_SHOWN} more" if len(bad) > LINE_SHOWN else ""
-        return f"REGRESSION: {len(bad)} of {n} {what} worse ({shown}{more}){suffix}"
-    return f"PASS: no configuration worse ({n} compared: {others}){suffix}"
+        return f"REGRESSION: {len(bad)} of {what} worse ({shown}{more}){suffix}"
+    if comp.verdict == "pass":
+        names = ", ".join(c.name for c in gated[:LINE_SHOWN]) + \
+            (f" and {n - LINE_SHOWN} more" if n > LINE_SHOWN else "")
+        return f"PASS: {what} shown no worse than allowed ({names}){suffix}"
+    open_ = comp.by_verdict("inconclusive")
+    shown = "; ".join(_config_brief(c) for c in open_[:LINE_SHOWN])
+    head = (f"{len(open_)} of {what} neither shown no worse nor shown worse ({shown}"
+            + (f"; and {len(open_) - LINE_SHOWN} more" if len(open_) > LINE_SHOWN else "") + ")")
+    if comp.accepted:
+        return ("INCONCLUSIVE, ACCEPTED by the policy (accept_inconclusive = true): not shown to be "
+                f"no worse, yet exit 0: {head}{suffix}")
+    return f"INCONCLUSIVE: {head}; not a pass (exit 3){suffix}"
+
+
+def resolution_lines(comp: Comparison) -> list[str]:
+    """Per gated cell: the smallest drop this test can show, from n and the observed spread."""
+    pol = comp.policy
+    out = [f"Gated: {comp.gated_by}."]
+    for c in comp.gated:
+        for m in c.metrics:
+            unit = f" {m.unit}" if m.unit else ""
+            if not math.isfinite(m.detectable):
+                out.append(f"  {c.name} {m.column}: {m.verdict}; {m.n} paired utterances, no spread")
+                continue
+            out.append(f"  {c.name} {m.column}: {m.verdict}; with {m.n} utterances and this spread "
+                       f"(paired SD {m.sd:.3g}), the smallest drop this test can show is "
+                       f"{m.detectable:.3g}{unit} (allowed {m.allowed:.3g}; drop bound "
+                       f"{m.drop_bound + 0.0:+.3g} at {pol.confidence:g}; {pol.power:.0%} power)")
+    return out
 
 
 # ---------------------------------------------------------------- Markdown
@@ -54,8 +87,9 @@ def _cell(m: MetricResult) -> str:
         return "n/a"
     head = signed_interval(m.diff, m.diff_low, m.diff_high) if math.isfinite(m.diff_low) \
         else fmt_signed(m.diff)
-    p = f" Holm p={m.p_holm:.2g}" if math.isfinite(m.p_holm) else ""
-    flag = {"regression": " ❌", "improvement": " ✅", "inconclusive": " ❔"}.get(m.verdict, "")
+    p = f" Holm p={m.p_holm:.2g}" if math.isfinite(m.p_holm) else \
+        (f" p={m.p:.2g}" if math.isfinite(m.p) else "")
+    flag = {"regression": " ❌", "pass": " ✅", "inconclusive": " ❔"}.get(m.verdict, "")
     return f"{head}{p}{flag}"
 
 
@@ -85,10 +119,13 @@ def _table(comp: Comparison, rows: list[ConfigResult]) -> list[str]:
     return md_table(head, cells).splitlines()
 
 
+TITLES = {"regression": "❌ REGRESSION", "pass": "✅ PASS", "inconclusive": "❔ INCONCLUSIVE"}
+
+
 def markdown(comp: Comparison) -> str:
     """Summary fit for a pull-request comment."""
     pol = comp.policy
-    title = "❌ REGRESSION" if comp.verdict == "regression" else "✅ PASS"
+    title = TITLES[comp.verdict] + (" (accepted by the policy)" if comp.accepted else "")
     mb, mc = comp.meta.get("baseline", {}), comp.meta.get("candidate", {})
     lines = [f"### vocobench compare: {title}", "", md_cell(verdict_line(comp)), ""]
     if comp.mode == "ab":
@@ -100,23 +137,28 @@ def markdown(comp: Comparison) -> str:
     lines.append("")
     if comp.forced:
         lines += ["**Compared with --force although:** " + md_cell("; ".join(comp.forced)), ""]
-    notable = [c for c in comp.configs if c.verdict != "pass"]
-    if notable:
-        lines += ["#### Configurations not passing cleanly", "", *_table(comp, notable), ""]
-        for c in notable:
-            if c.reasons:
-                lines.append(f"- `{md_cell(c.name)}`: {c.verdict} — " + md_cell("; ".join(c.reasons)))
-        lines.append("")
-    lines += ["<details><summary>All configurations</summary>", "", *_table(comp, comp.configs), "",
-              "</details>", ""]
+    if comp.accepted:
+        lines += ["**Accepted without evidence:** the policy sets `accept_inconclusive = true`; "
+                  "this result does not show that the candidate is no worse.", ""]
+    lines += ["#### Gated configurations", "", md_cell(f"Gated: {comp.gated_by}."), "",
+              *_table(comp, comp.gated), ""]
+    for c in comp.gated:
+        if c.reasons and c.verdict != "pass":
+            lines.append(f"- `{md_cell(c.name)}`: {c.verdict} — " + md_cell("; ".join(c.reasons)))
+    lines += ["", "Resolution:", "", *[f"- {md_cell(x.strip())}" for x in resolution_lines(comp)[1:]], ""]
+    if comp.information:
+        lines += ["<details><summary>Information: configurations not gated (unadjusted; they do "
+                  "not change the verdict)</summary>", "", *_table(comp, comp.information), "",
+                  "</details>", ""]
     allow = ", ".join(_allow_text(m) for m in (comp.configs[0].metrics if comp.configs else []))
-    two = 2 * pol.confidence - 1
     lines += ["#### Rule", "",
               f"Δ = candidate − baseline, mean over paired utterances (seeds averaged first); "
-              f"[L, U] = one-sided {pol.confidence:g} bootstrap bounds (together a {two:.0%} "
-              f"interval); Holm p = Holm-adjusted two-sided Wilcoxon p. Regression: the bound on "
-              f"the worse side lies beyond the allowed drop and Holm p ≤ {pol.alpha:.3g}; any new failed "
-              f"item is a regression; fewer than {pol.min_items} paired utterances is inconclusive.",
+              f"[L, U] = one-sided {pol.confidence:g} bootstrap bounds. A gated metric passes when "
+              f"its drop bound is below the allowed drop (non-inferiority), and is a regression when "
+              f"its p-value of \"drop beyond the allowance\", Holm-adjusted over the gated metrics "
+              f"(Holm p), is ≤ {pol.alpha:.3g}; otherwise it is inconclusive. The comparison passes "
+              f"only if every gated metric passes; any new failed item is a regression; "
+              f"inconclusive exits 3 unless the policy accepts it.",
               f"Allowed drop: {allow or 'n/a'}; RTF +{pol.max_rtf_increase_pct:g} %. "
               f"Policy: {pol.source}.", ""]
     notes = list(comp.notes) + ([comp.latency_note] if comp.latency_note else [])
@@ -135,7 +177,8 @@ def _detail(c: ConfigResult) -> str:
     lines = [f"{c.name}: {c.verdict}"]
     for m in c.metrics:
         lines.append(f"  {m.column}: Δ {signed_interval(m.diff, m.diff_low, m.diff_high)} n={m.n} "
-                     f"allowed {m.allowed:.4g} p_holm={m.p_holm:.3g} → {m.verdict}"
+                     f"allowed {m.allowed:.4g} p={m.p:.3g} p_holm={m.p_holm:.3g} "
+                     f"smallest drop shown {m.detectable:.3g} → {m.verdict}"
                      + (f" ({m.reason})" if m.reason else ""))
     lat = c.latency
     lines.append(f"  latency: {lat.verdict}" + (f" ratio {lat.ratio:.3f}" if math.isfinite(lat.ratio) else "")
@@ -149,8 +192,9 @@ def _detail(c: ConfigResult) -> str:
 def junit(comp: Comparison, suite: str = "vocobench.compare") -> str:
     """JUnit XML, one ``testcase`` per configuration."""
     k = comp.counts()
-    attrs = {"name": suite, "tests": str(len(comp.configs)), "failures": str(k["regression"]),
-             "errors": "0", "skipped": str(k["inconclusive"]), "time": "0"}
+    failures = k["regression"] + (0 if comp.accepted else k["inconclusive"])
+    attrs = {"name": suite, "tests": str(len(comp.configs)), "failures": str(failures),
+             "errors": "0", "skipped": str(len(comp.configs) - failures - k["pass"]), "time": "0"}
     root = ET.Element("testsuites", attrs)
     ts = ET.SubElement(root, "testsuite", {**attrs, "timestamp":
                                             datetime.now(timezone.utc).isoformat(timespec="seconds")})
@@ -164,11 +208,13 @@ def junit(comp: Comparison, suite: str = "vocobench.compare") -> str:
                                             "classname": f"{suite}.{key.schedule}.{key.sampler}",
                                             "time": "0"})
         msg = "; ".join(c.reasons) or c.verdict
-        if c.verdict == "regression":
-            f = ET.SubElement(tc, "failure", {"message": msg, "type": "regression"})
+        if not c.gated:
+            ET.SubElement(tc, "skipped", {"message": f"information, not gated: {c.verdict}"})
+        elif c.verdict == "regression" or (c.verdict == "inconclusive" and not comp.accepted):
+            f = ET.SubElement(tc, "failure", {"message": msg, "type": c.verdict})
             f.text = _detail(c)
         elif c.verdict == "inconclusive":
-            ET.SubElement(tc, "skipped", {"message": msg})
+            ET.SubElement(tc, "skipped", {"message": "inconclusive, accepted by the policy: " + msg})
         else:
             out = ET.SubElement(tc, "system-out")
             out.text = _detail(c)

@@ -1,4 +1,4 @@
-"""Gate policy: how much worse a candidate may be before a configuration is a regression.
+"""Gate policy: how much worse a candidate may be, which configurations decide, what is accepted.
 
 Default policy (our choice; the reasoning is given per line)
 ------------------------------------------------------------
@@ -17,17 +17,32 @@ Allowed drop of the mean, direction-aware, in the metric's own unit:
 * every other directed metric column: **2 % of the baseline mean** (a scale-free fallback).
 * RTF: **+10 %** (ratio of medians). Run-to-run timing noise on a quiet machine is a few percent
   (common practice, no source); beyond 10 % a latency budget visibly shrinks.
-* minimum **10 paired utterances** per configuration. With n utterances the smallest two-sided
-  exact Wilcoxon p-value is 2/2ⁿ (Wilcoxon 1945): 0.0625 for n = 5, so no regression could ever
-  be significant; with 10 it is 0.002, leaving room for Holm's correction over a grid. Bootstrap
-  intervals also under-cover on very small samples (Efron & Tibshirani 1993, Ch. 14, from memory).
-* confidence **0.95** (common practice, no source).
+* minimum **10 paired utterances** per gated configuration; fewer, and the comparison is refused
+  before any statistic (exit 2, :mod:`vocobench.gate.gating`). With n utterances the smallest
+  one-sided p-value of an exact paired test is 2⁻ⁿ (Wilcoxon 1945): 0.03 for n = 5, no room for
+  a correction over several tests; with 10 it is 0.001, room for Holm's correction over about
+  50. Bootstrap bounds also under-cover on very small samples (Efron & Tibshirani 1993, Ch. 14,
+  from memory). More gated tests raise the minimum to ⌈log₂(m/α)⌉.
+* confidence **0.95** (common practice, no source): each gated (configuration, metric) cell is
+  shown no worse at one-sided level 0.05, and the family of gated cells is shown worse with a
+  family-wise error of at most 0.05 (decision rule: :mod:`vocobench.gate.verdict`).
+* **gated = "recommended"**: the baseline's recorded recommendation (``report/recommendation.json``
+  of a run directory, or the copy a frozen baseline carries), else every configuration. A release
+  ships one operating point; gating only it keeps the multiplicity correction small, so a real
+  drop there is found with far fewer utterances. The other configurations are still compared,
+  as information.
+* **accept_inconclusive = false**: an inconclusive comparison (neither shown no worse nor shown
+  worse) exits 3, never 0; a team may accept it explicitly, and the verdict then says so.
+* power **0.9** (common practice: 80–90 %, e.g. Chow, Shao & Wang 2008, from memory) for the
+  stated resolution ("the smallest drop this test can show") and for ``vocobench plan-size``.
 
 Policy file (TOML; every key optional, defaults and ranges in :data:`POLICY`, rendered in
 DEVELOPERS.md)::
 
     min_items = 12
     max_rtf_increase_pct = 5
+    gated = ["quadratic/ddim/10"]  # or "recommended" (default) or "all"
+    accept_inconclusive = true     # exit 0 on an inconclusive comparison, said in the verdict
     [allow]                        # number: in the metric's unit; "N%": of the baseline mean
     pesq_wb = 0.1
     lsd = "3%"
@@ -42,8 +57,9 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from ..errors import InputError
-from ..params import (Custom, Integer, MapOf, Param, Real, Table, check, is_number, read_toml,
-                      with_defaults)
+from ..keys import ConfigKey
+from ..params import (Boolean, Custom, Integer, MapOf, Param, Real, Table, check, is_number,
+                      read_toml, with_defaults)
 from ..stats import BOOTSTRAP, BootstrapSettings
 
 
@@ -85,11 +101,32 @@ def _allowance(value: Any) -> Allowance:
     return Allowance(float(num), relative=rel)
 
 
+GATED_WORDS = ("recommended", "all")
+
+
+def _gated(value: Any) -> "str | tuple[str, ...]":
+    """``"recommended"``, ``"all"`` or a non-empty list of ``schedule/sampler/steps`` labels."""
+    if isinstance(value, str) and value in GATED_WORDS:
+        return value
+    items = [value] if isinstance(value, str) else value
+    if not isinstance(items, (list, tuple)) or not items:
+        raise ValueError("must be 'recommended', 'all' or a list of schedule/sampler/steps labels")
+    out = []
+    for v in items:
+        parts = str(v).rsplit("/", 2) if isinstance(v, str) else []
+        if len(parts) != 3 or not parts[0] or not parts[1] or not parts[2].isdigit():
+            raise ValueError(f"not a configuration label schedule/sampler/steps: {v!r}")
+        out.append(ConfigKey.parse(v).label)
+    return tuple(dict.fromkeys(out))
+
+
 DEFAULT_ALLOW: dict[str, Allowance] = {
     "pesq_wb": Allowance(0.05), "pesq_nb": Allowance(0.05),
     "stoi": Allowance(0.01), "estoi": Allowance(0.01),
     "mcd": Allowance(0.2), "mcd_mfcc": Allowance(0.2),
 }
+GATED = Custom("'recommended', 'all' or a list of schedule/sampler/steps labels", _gated,
+               "string or list")
 ALLOWANCE = Custom("a number ≥ 0 (metric unit) or 'N%' (of the baseline mean)", _allowance,
                    "number or string")
 POLICY_BOOTSTRAP = BOOTSTRAP.subset("n_resamples", "seed", "method")
@@ -101,6 +138,13 @@ POLICY = Table("", [
           "allowed drop of a column not in `allow`, % of the baseline mean"),
     Param("allow", MapOf(ALLOWANCE, "a table of metric = allowed drop"), {},
           "allowed mean drop per metric column; overrides the built-in ones (see gate/policy.py)"),
+    Param("gated", GATED, "recommended",
+          "configurations whose verdict decides: 'recommended' (the baseline's recorded "
+          "recommendation, else all), 'all', or a list of schedule/sampler/steps labels"),
+    Param("accept_inconclusive", Boolean(), False,
+          "exit 0 on an inconclusive comparison (the verdict then says it was accepted)"),
+    Param("power", Real(0.5, 1, closed="neither"), 0.9,
+          "power of the stated resolution (smallest drop shown) and of plan-size"),
     Param("bootstrap", POLICY_BOOTSTRAP, doc="bootstrap settings"),
 ], title="Gate policy file (`vocobench compare --policy FILE`)")
 
@@ -120,6 +164,9 @@ class Policy:
     max_rtf_increase_pct: float
     min_items: int
     confidence: float
+    gated: "str | tuple[str, ...]"
+    accept_inconclusive: bool
+    power: float
     n_resamples: int                  # n_resamples, seed, method: the file's [bootstrap] table
     seed: int
     method: str
@@ -136,7 +183,8 @@ class Policy:
 
     @property
     def alpha(self) -> float:
-        """Family-wise level of the Holm-adjusted Wilcoxon test: ``1 − confidence``."""
+        """``1 − confidence``: the one-sided level of each non-inferiority test and the
+        family-wise level of the Holm-adjusted regression tests."""
         return 1.0 - float(self.confidence)
 
     def allowance(self, column: str) -> Allowance:
@@ -153,8 +201,10 @@ class Policy:
         return {"allow": {k: a.describe() for k, a in sorted(self.allow.items())},
                 "default_allow_pct": self.default_allow_pct,
                 "max_rtf_increase_pct": self.max_rtf_increase_pct, "min_items": self.min_items,
-                "confidence": self.confidence, "bootstrap": self.settings.describe(),
-                "source": self.source}
+                "confidence": self.confidence,
+                "gated": self.gated if isinstance(self.gated, str) else list(self.gated),
+                "accept_inconclusive": self.accept_inconclusive, "power": self.power,
+                "bootstrap": self.settings.describe(), "source": self.source}
 
 
 def parse_allowance(value: Any, *, source: str, field: str) -> Allowance:

@@ -6,7 +6,9 @@
         assert_no_regression("baselines/v1.json.gz", "reports/candidate")
 
 It raises ``AssertionError`` whose message is the Markdown summary, so a failing test shows the
-offending configurations, their intervals and the rule applied.
+offending configurations, their intervals and the rule applied: on a regression, and on an
+inconclusive result unless the policy accepts it (``accept_inconclusive``) — the same outcomes
+that make ``vocobench compare`` exit non-zero.
 """
 from __future__ import annotations
 
@@ -22,12 +24,14 @@ from .policy import Policy
 def assert_no_regression(baseline: "str | Path | Run", candidate: "str | Path | Run",
                          policy: "Policy | str | Path | Mapping[str, Any] | None" = None, *,
                          force: bool = False, match: Mapping[str, str] | None = None) -> Comparison:
-    """Compare (see :func:`vocobench.gate.compare_runs`); raise ``AssertionError`` on a regression.
+    """Compare (see :func:`vocobench.gate.compare_runs`); raise ``AssertionError`` unless the
+    comparison passes (or is inconclusive and the policy accepts that).
 
-    Returns the :class:`Comparison` when there is none, for further checks. Incomparable inputs
-    raise :class:`vocobench.errors.InputError` (an error, not a test failure).
+    Returns the :class:`Comparison` otherwise, for further checks. Incomparable inputs, and a
+    test set too small for any verdict, raise :class:`vocobench.errors.InputError` (an error,
+    not a test failure).
     """
     comp = compare_runs(baseline, candidate, policy, force=force, match=match)
-    if comp.verdict == "regression":
+    if comp.exit_code != 0:
         raise AssertionError(markdown(comp))
     return comp

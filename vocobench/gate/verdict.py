@@ -1,34 +1,64 @@
-"""Verdicts of the gate: the result types and the rules that set them.
+"""Verdicts of the gate: the result types and the decision rule that sets them.
 
-Verdict rule (per configuration and metric)
--------------------------------------------
-Let ``s_u = d_u`` for a metric where higher is better and ``s_u = −d_u`` where lower is better
-(so ``s > 0`` always means "better"), ``δ`` the allowed drop from the policy (in the metric's
-unit; a relative allowance is taken of the baseline mean of the paired utterances), ``L`` and
-``U`` the one-sided lower and upper bootstrap bounds of mean(s), each at the policy's confidence
-``c`` (paired bootstrap over utterances, :func:`vocobench.stats.paired_comparison`, BCa by
-default, Efron 1987; the same one-sided convention as ``diff_bound`` in
-:func:`vocobench.stats.summarise`), and *Holm p* the two-sided Wilcoxon signed-rank p-value of
-``d`` (Wilcoxon 1945), Holm-adjusted across the compared configurations of that metric (Holm
-1979), ``α = 1 − c``:
+Decision rule
+-------------
+A *cell* is one compared configuration and one metric. Let ``d_u = candidate_u − baseline_u``
+over the paired utterances (seeds averaged within an utterance first), ``s_u = d_u`` where higher
+is better and ``s_u = −d_u`` where lower is better (so ``s > 0`` always means "candidate
+better"; the *drop* is ``−mean(s)``), ``δ ≥ 0`` the allowed drop (:mod:`vocobench.gate.policy`;
+a relative allowance is taken of the paired baseline mean), ``c`` the policy's confidence,
+``α = 1 − c`` and ``m`` the number of gated cells. From one paired bootstrap draw of mean(s)
+(:func:`vocobench.stats.paired_comparison`, BCa by default, Efron 1987):
 
-* **inconclusive** if fewer than ``min_items`` utterances are paired;
-* **regression** if ``U < −δ`` and Holm p ``≤ α``: with confidence ``c`` the mean dropped by more
-  than allowed, and the drop survives the multiple-comparison correction over the grid;
-* **inconclusive** as well if ``U < −δ`` but Holm p ``> α`` (the bound shows a drop the rank test,
-  after the correction, does not confirm — typical of very few utterances);
-* **improvement** if ``L > δ`` and Holm p ``≤ α``;
-* **pass** otherwise (no evidence of a drop beyond the allowance).
+* ``L``, ``U``: one-sided lower and upper bounds of mean(s), each at confidence ``c``;
+* ``p``: the p-value of H₀ "drop ≤ δ" against "drop > δ", read from the same draw by inverting
+  the upper bound (:func:`vocobench.inference.bootstrap_p`): ``p ≤ α`` when ``U < −δ``, up to the
+  resampling's discreteness;
+* ``p_holm``: ``p`` Holm-adjusted over the ``m`` gated cells (Holm 1979, "A simple sequentially
+  rejective multiple test procedure", Scand. J. Statist.).
 
-A true drop of exactly ``δ`` is thus called a regression with probability about ``1 − c``, a
-true drop of zero far less often. ``[L, U]`` is reported as the interval (two-sided level
-``2c − 1``, e.g. 90 % for c = 0.95).
+A gated cell with at least ``min_items`` paired utterances is
 
-A configuration is a **regression** if any metric is, or if any item that was ``ok`` in the
-baseline failed in the candidate ("new failures", a regression by themselves), or if its latency
-is (see :mod:`vocobench.gate.latency`). Otherwise it is **inconclusive** if any metric is,
-**improvement** if any metric or its latency improved, else **pass**. The comparison as a whole
-is a regression if any configuration is (exit code 1).
+* **pass** if ``L > −δ``: the drop is below the allowance at confidence ``c``, a non-inferiority
+  test at one-sided level ``α`` (ICH E9 1998, "Statistical Principles for Clinical Trials",
+  §3.3.2; Wellek 2010, "Testing Statistical Hypotheses of Equivalence and Noninferiority",
+  2nd ed.);
+* **regression** if ``p_holm ≤ α``: the drop exceeds the allowance, with the family-wise error
+  over the gated cells at most ``α``;
+* **inconclusive** otherwise (the spread is too wide for either statement); a cell with fewer
+  paired utterances (missing values) is inconclusive too.
+
+Pass and regression exclude each other (``L ≤ U``). A configuration is a **regression** if any of
+its cells is, if an item that was ``ok`` in the baseline failed in the candidate (new failures
+are a regression by themselves, whatever the statistics), or if its latency is (stored-run
+latency can only add a regression, never certify a pass: see :mod:`vocobench.gate.latency`);
+otherwise **pass** if every cell passes, else **inconclusive**.
+
+The comparison as a whole is
+
+* **regression** (exit 1) if any gated configuration is. "Some cell is worse" is a union of
+  hypotheses (union–intersection principle, Roy 1953), so its error needs the adjustment:
+  Holm's step-down keeps the chance of any false regression at most ``α`` whatever the
+  dependence between cells (up to the bootstrap's approximation);
+* **pass** (exit 0) if every gated configuration passes. "Every cell is no worse" is an
+  intersection–union test (Berger 1982, "Multiparameter hypothesis testing and acceptance
+  sampling", Technometrics 24): each cell tested at ``α`` gives level ``α`` for the whole, no
+  adjustment; so if any gated cell truly drops by ``δ`` or more, a pass has probability ≤ ``α``;
+* **inconclusive** otherwise: exit 3, or 0 when the policy sets ``accept_inconclusive``, and the
+  verdict then says in words that an unproven result was accepted.
+
+Configurations outside the gated set (policy ``gated``) are compared the same way with
+unadjusted p-values and reported as information; they never change the verdict.
+
+Resolution and refusal
+----------------------
+Every cell states the smallest drop the test can show: ``δ + (z₁₋α/ₘ + z_power)·σ/√n``, the true
+drop flagged with the policy's power at Holm's strictest step ``α/m`` (normal approximation;
+Chow, Shao & Wang 2008, §3.1), ``σ`` the observed SD of ``s``. Before any statistics,
+:func:`vocobench.gate.gating.check_size` refuses (exit 2) a comparison whose gated
+configurations have fewer than ``min_items`` paired utterances, or so few that ``2⁻ⁿ`` — the
+smallest p-value any exact paired test can give (:func:`vocobench.inference.min_exact_p`) —
+exceeds ``α/m``: such a gate could never fail, so it must not be allowed to pass.
 """
 from __future__ import annotations
 
@@ -40,12 +70,14 @@ from ..textfmt import signed_interval
 from .latency import LatencyResult
 from .policy import Policy
 
-VERDICTS = ("regression", "inconclusive", "improvement", "pass")
+VERDICTS = ("regression", "inconclusive", "pass")
+EXIT_CODES = {"pass": 0, "regression": 1, "inconclusive": 3}     # 2: unusable input (cli.py)
 
 
 @dataclass
 class MetricResult:
-    """One metric of one configuration; ``diff*`` are raw (candidate − baseline, metric unit)."""
+    """One metric of one configuration; ``diff*`` are raw (candidate − baseline, metric unit),
+    ``diff_low``/``diff_high`` the one-sided bounds at the policy's confidence."""
 
     column: str
     unit: str
@@ -58,9 +90,13 @@ class MetricResult:
     diff_high: float
     allowed: float
     allowance: str
-    p: float
-    p_holm: float = math.nan
-    verdict: str = "pass"
+    p: float                            # H₀ "drop ≤ allowed" (bootstrap, same draw as the bounds)
+    p_holm: float = math.nan            # Holm over the gated cells; NaN for information cells
+    sd: float = math.nan                # SD of the per-utterance differences
+    detectable: float = math.nan        # smallest drop this test can show (module docstring)
+    gated: bool = True
+    improved: bool = False              # shown better by more than the allowance (information)
+    verdict: str = "inconclusive"
     reason: str = ""
 
     @property
@@ -73,6 +109,11 @@ class MetricResult:
         if self.higher_is_better:
             return self.diff_low, self.diff_high
         return -self.diff_high, -self.diff_low
+
+    @property
+    def drop_bound(self) -> float:
+        """One-sided upper bound of the drop (``−L``)."""
+        return -self.better_bounds[0]
 
 
 @dataclass
@@ -87,7 +128,9 @@ class ConfigResult:
     failed_candidate: int = 0
     new_failures: int = 0
     missing: int = 0                    # baseline items with no candidate counterpart
-    verdict: str = "pass"
+    paired: int = 0                     # utterances with ok items on both sides
+    gated: bool = True
+    verdict: str = "inconclusive"
     reasons: list[str] = field(default_factory=list)
 
     @property
@@ -110,20 +153,43 @@ class Comparison:
     latency_note: str = ""
     seeds: dict[str, Any] = field(default_factory=dict)
     meta: dict[str, Any] = field(default_factory=dict)
+    gated_by: str = "all"                # why these configurations are gated (said in outputs)
+
+    @property
+    def gated(self) -> list[ConfigResult]:
+        return [c for c in self.configs if c.gated]
+
+    @property
+    def information(self) -> list[ConfigResult]:
+        return [c for c in self.configs if not c.gated]
 
     @property
     def verdict(self) -> str:
-        return "regression" if any(c.verdict == "regression" for c in self.configs) else "pass"
+        """regression, pass or inconclusive, from the gated configurations (module docstring)."""
+        gated = self.gated
+        if any(c.verdict == "regression" for c in gated):
+            return "regression"
+        if gated and all(c.verdict == "pass" for c in gated):
+            return "pass"
+        return "inconclusive"
+
+    @property
+    def accepted(self) -> bool:
+        """An inconclusive result that the policy accepts (``accept_inconclusive``)."""
+        return self.verdict == "inconclusive" and bool(self.policy.accept_inconclusive)
 
     @property
     def exit_code(self) -> int:
-        return 1 if self.verdict == "regression" else 0
+        """0 pass (or an accepted inconclusive), 1 regression, 3 inconclusive."""
+        return 0 if self.accepted else EXIT_CODES[self.verdict]
 
-    def counts(self) -> dict[str, int]:
-        return {v: sum(c.verdict == v for c in self.configs) for v in VERDICTS}
+    def counts(self, gated: bool | None = True) -> dict[str, int]:
+        """Configurations per verdict: gated ones (default), information ones, or all (None)."""
+        cs = self.configs if gated is None else [c for c in self.configs if c.gated == gated]
+        return {v: sum(c.verdict == v for c in cs) for v in VERDICTS}
 
-    def by_verdict(self, verdict: str) -> list[ConfigResult]:
-        return [c for c in self.configs if c.verdict == verdict]
+    def by_verdict(self, verdict: str, gated: bool | None = True) -> list[ConfigResult]:
+        return [c for c in self.configs if c.verdict == verdict and (gated is None or c.gated == gated)]
 
     def to_dict(self) -> dict[str, Any]:
         cfgs = []
@@ -132,34 +198,37 @@ class Comparison:
             for m, md in zip(c.metrics, d["metrics"]):
                 md["better"] = m.better
             cfgs.append(d)
-        return {"format": "vocobench-compare/1", "verdict": self.verdict, "mode": self.mode,
-                "exit_code": self.exit_code, "baseline": self.baseline, "candidate": self.candidate,
-                "counts": self.counts(), "policy": self.policy.describe(), "notes": self.notes,
+        return {"format": "vocobench-compare/2", "verdict": self.verdict, "mode": self.mode,
+                "exit_code": self.exit_code, "accepted_inconclusive": self.accepted,
+                "baseline": self.baseline, "candidate": self.candidate, "gated_by": self.gated_by,
+                "counts": self.counts(), "information_counts": self.counts(False),
+                "policy": self.policy.describe(), "notes": self.notes,
                 "forced": self.forced, "latency_note": self.latency_note, "seeds": self.seeds,
                 "meta": self.meta, "configurations": cfgs}
 
 
 def metric_verdict(r: MetricResult, pol: Policy) -> None:
-    """Set ``r.verdict`` and ``r.reason`` by the metric rule of the module docstring."""
+    """Set ``r.verdict`` and ``r.reason`` by the cell rule of the module docstring (information
+    cells use the unadjusted ``p``)."""
+    low, high = r.better_bounds
+    delta = r.allowed
+    r.improved = math.isfinite(low) and low > delta
+    p = r.p_holm if r.gated else r.p
     if r.n < pol.min_items:
         r.verdict = "inconclusive"
         r.reason = f"{r.column}: {r.n} paired utterances (minimum {pol.min_items})"
-        return
-    low, high = r.better_bounds
-    delta = r.allowed
-    significant = math.isfinite(r.p_holm) and r.p_holm <= pol.alpha
-    if high < -delta and significant:
-        r.verdict = "regression"
-        r.reason = f"worse by more than {delta:.3g} with {pol.confidence:g} confidence"
-    elif high < -delta:
-        r.verdict = "inconclusive"
-        r.reason = (f"{r.column}: interval below −{delta:.3g} but the Holm-adjusted Wilcoxon "
-                    f"p = {r.p_holm:.3g} > {pol.alpha:.3g}")
-    elif low > delta and significant:
-        r.verdict = "improvement"
-        r.reason = f"better by more than {delta:.3g} with {pol.confidence:g} confidence"
-    else:
+    elif math.isfinite(low) and low > -delta:
         r.verdict = "pass"
+        r.reason = (f"{r.column}: drop at most {-low:.3g} < allowed {delta:.3g} "
+                    f"({pol.confidence:g} one-sided)")
+    elif math.isfinite(p) and p <= pol.alpha:
+        r.verdict = "regression"
+        r.reason = (f"{r.column}: worse by more than {delta:.3g} "
+                    f"({'Holm-adjusted ' if r.gated else 'unadjusted '}p = {p:.2g})")
+    else:
+        r.verdict = "inconclusive"
+        r.reason = (f"{r.column}: drop bound {-low:+.3g} not below allowed {delta:.3g}, "
+                    f"nor a drop beyond it shown (p = {p:.2g})")
 
 
 def config_verdict(res: ConfigResult, pol: Policy) -> None:
@@ -179,15 +248,15 @@ def config_verdict(res: ConfigResult, pol: Policy) -> None:
         res.verdict = "regression"
         res.reasons = reasons + res.reasons
         return
-    inconclusive = [m for m in res.metrics if m.verdict == "inconclusive"]
-    if inconclusive:
+    open_cells = [m for m in res.metrics if m.verdict != "pass"]
+    if open_cells:
         res.verdict = "inconclusive"
-        res.reasons.insert(0, inconclusive[0].reason)
-    elif not res.metrics and res.latency.verdict not in ("pass", "improvement"):
-        res.verdict = "inconclusive"
-        res.reasons.insert(0, res.latency.reason or "nothing to compare")
-    elif any(m.verdict == "improvement" for m in res.metrics) or res.latency.verdict == "improvement":
-        res.verdict = "improvement"
+        res.reasons[:0] = [m.reason for m in open_cells]
+    elif not res.metrics:                # A/B: latency is all there is
+        ok = res.latency.verdict in ("pass", "improvement")
+        res.verdict = "pass" if ok else "inconclusive"
+        if not ok:
+            res.reasons.insert(0, res.latency.reason or "nothing to compare")
     else:
         res.verdict = "pass"
 

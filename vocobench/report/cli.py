@@ -34,6 +34,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--resamples", type=int, metavar="N", help="bootstrap resamples")
     parser.add_argument("--seed", type=int, metavar="N", help="bootstrap seed")
     parser.add_argument("--method", choices=METHOD_NAMES, help="bootstrap interval method")
+    parser.add_argument("--min-items", type=int, metavar="N",
+                        help="fewest utterances for a recommendation (fewer: none is named)")
+    parser.add_argument("--power", type=float, metavar="P",
+                        help="power of the 'utterances needed' figures, e.g. 0.9")
     parser.add_argument("--worst", type=int, metavar="N", help="worst utterances listed per configuration")
     parser.add_argument("--no-plots", action="store_true", help="skip the plots")
     parser.add_argument("--no-page", action="store_true", help="skip the listening page")
@@ -80,6 +84,7 @@ def build_options(args: argparse.Namespace, run: Any = None):
                         rtf_budget=_budget(args.rtf_budget), listen=args.listen,
                         listen_limit=args.listen_limit, confidence=args.confidence,
                         resamples=args.resamples, seed=args.seed, method=args.method,
+                        min_items=args.min_items, power=args.power,
                         worst=args.worst, plots=False if args.no_plots else None,
                         page=False if args.no_page else None)
     return opts

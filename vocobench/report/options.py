@@ -25,6 +25,11 @@ from ..stats import BOOTSTRAP
 
 DEFAULT_MARGIN_REL = 0.05       # our choice: 5 % of the reference mean, stated in every report
 DEFAULT_RTF_BUDGET = 1.0        # real time (RTF = synthesis time / audio duration)
+# Our choice, as the gate's (gate/policy.py): with 10 utterances the smallest exact paired p-value
+# is 2^-10 ≈ 0.001 (Wilcoxon 1945), and bootstrap bounds under-cover on fewer (Efron &
+# Tibshirani 1993, Ch. 14, from memory).
+DEFAULT_MIN_ITEMS = 10
+DEFAULT_POWER = 0.9             # common practice, 80–90 % (Chow, Shao & Wang 2008, from memory)
 
 _NAMES = ListOf(String(nonempty=True), split=",", as_tuple=True)
 DECIDE = Table("decide", [
@@ -49,6 +54,10 @@ DECIDE = Table("decide", [
     BOOTSTRAP["n_resamples"].renamed("resamples"),
     BOOTSTRAP["seed"],
     BOOTSTRAP["method"],
+    Param("min_items", Integer(low=2), DEFAULT_MIN_ITEMS,
+          "fewest utterances for a recommendation (fewer: none is named, and the report says so)"),
+    Param("power", Real(0.5, 1, closed="neither"), DEFAULT_POWER,
+          "power of the 'utterances needed' figures in the recommendation"),
     Param("worst", Integer(low=0), 3, "worst utterances listed per configuration and metric"),
     Param("plots", Boolean(), True, "write plots"),
     Param("svg", Boolean(), False, "also write the plots as SVG (PNG always; SVG doubles the drawing)"),
@@ -73,6 +82,8 @@ class ReportOptions:
     resamples: int
     seed: int
     method: str
+    min_items: int
+    power: float
     worst: int
     plots: bool
     svg: bool

@@ -28,6 +28,7 @@ from .decide import CAUTION, Recommendation, recommend
 from .listening import default_choice, fewest_steps, write_listening_page
 from .options import ReportOptions, options_for
 from .publish import Staging, final_path, report_digest
+from .recommendation import recommendation_text
 from .table import build_table, display_table, worst_utterances
 
 TITLE = "Quality against latency"
@@ -112,9 +113,8 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
                             if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
         opts = opts.replace(metrics=with_values) if with_values else opts
     table = build_table(st)
-    header, rows = display_table(table, st)
     if st.columns and opts.metrics:
-        decision = recommend(st, table, opts)
+        decision = recommend(st, table, opts)      # also marks the recommended rows in `table`
         text = decision.text
     else:
         decision = None
@@ -123,6 +123,7 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     note = rests_on.reference_note(st.reference, chosen=ref is not None)
     if note:
         text = f"{note}\n\n{text}"
+    header, rows = display_table(table, st)
     parts = ReportParts(run_dir, st, table, header, rows, worst_utterances(st, opts.worst), opts.worst,
                         text)
     staging = Staging(run_dir)
@@ -157,6 +158,8 @@ def _write(staging: Staging, run: Run, st: RunStatistics, opts: ReportOptions, p
     paths: dict[str, Path] = {}
     for name, writer in WRITERS.items():
         _put(paths, name, rep / name, writer(parts))
+    _put(paths, "recommendation.json", rep / "recommendation.json",      # read by the gate
+         recommendation_text(decision, opts))
     plots: list[Path] = []
     if opts.plots and st.columns:
         from .plots import write_plots

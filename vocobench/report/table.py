@@ -48,7 +48,8 @@ def build_table(st: RunStatistics) -> pd.DataFrame:
 # ---------------------------------------------------------------- display cells
 
 def display_table(table: pd.DataFrame, st: RunStatistics) -> tuple[list[str], list[list[str]]]:
-    """Header and string cells shared by the text, Markdown and LaTeX renderings."""
+    """Header and string cells shared by the text, Markdown and LaTeX renderings; a
+    "Recommended" column marks the recommended rows once the table has a ``recommended`` column."""
     conf = f"{round(100 * st.settings.confidence):d} %"
     header = ["Configuration", "NFE", "RTF median", "RTF p90", "ms per NFE", "First call s", "Failed"]
     for col, spec in st.columns.items():
@@ -57,6 +58,9 @@ def display_table(table: pd.DataFrame, st: RunStatistics) -> tuple[list[str], li
         header += [f"{col}{unit} {arrow} mean [{conf} CI]", f"Δ {col} vs reference [{conf} CI]",
                    f"Δ {col} Holm p"]
     header.append("Pareto front")
+    marked = "recommended" in table.columns          # set by decide.recommend
+    if marked:
+        header.append("Recommended")
     rows = []
     for _, r in table.iterrows():
         label = r["config"] + (" (reference)" if r["reference"] else "")
@@ -73,6 +77,8 @@ def display_table(table: pd.DataFrame, st: RunStatistics) -> tuple[list[str], li
                 cells += [interval(r[f"{col}_diff"], r[f"{col}_diff_low"], r[f"{col}_diff_high"],
                                    sign=True, sig=3), fmt_p(r[f"{col}_p_holm"])]
         cells.append(r["pareto"] or NA)
+        if marked:
+            cells.append(f"◀ {r['recommended']}" if r["recommended"] else "")
         rows.append(cells)
     return header, rows
 
