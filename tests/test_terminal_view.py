@@ -35,11 +35,13 @@ DEMO = REPO_ROOT / "scenarios" / "pier-announcements"
 
 @pytest.fixture(scope="module")
 def result(tmp_path_factory):
+    # 4 utterances: the lowered evidence bars of tests/test_report.py (min_items 4, confidence 0.9)
+    bars = {"min_items": 4, "confidence": 0.9}
     run_dir = make_run(tmp_path_factory.mktemp("tv"),
                        decide={"margins": MARGINS, "rtf_budget": 0.2, "resamples": 300,
-                               "plots": False, "page": False})
+                               "plots": False, "page": False, **bars})
     res = render_report(run_dir, ReportOptions(margins=MARGINS, rtf_budget=0.2, resamples=300,
-                                               plots=False, page=False), echo=False)
+                                               plots=False, page=False, **bars), echo=False)
     return run_dir, res
 
 
@@ -160,20 +162,21 @@ def test_colour_only_on_a_terminal_and_never_with_no_color(result, env, coloured
 
 @pytest.fixture(scope="module")
 def small_demo(tmp_path_factory):
-    """A scenario like the bundled demo, made small: 3 of its recordings, 2 schedules × 2
-    samplers × 2 step counts, the demo's metrics and [decide] rule."""
+    """A scenario like the bundled demo, made small: 4 of its recordings, its 2 schedules × 2
+    samplers × 2 step counts, the demo's metrics and [decide] rule with the evidence bars
+    lowered for 4 utterances (min_items 4, confidence 0.9: 2^-4 ≤ 0.1)."""
     root = tmp_path_factory.mktemp("demo")
     scenario = root / "scenario"
     (scenario / "testset").mkdir(parents=True)
-    for k in (1, 2, 3):
+    for k in (1, 2, 3, 4):
         shutil.copy(DEMO / "testset" / f"pier0{k}.wav", scenario / "testset" / f"pier0{k}.wav")
     config = (DEMO / "config.toml").read_text()
     config = config.replace('path = "testset/manifest.csv"', 'path = "testset"')
-    config = config.replace("steps = [1, 2, 3, 10, 50]", "steps = [2, 10]")
+    config = config.replace("steps = [1, 3, 10, 50]", "steps = [3, 10]")
     config = config.replace("seeds = [0, 1]", "seeds = [0]")
     config = config.replace("repeats = 3", "repeats = 1").replace("workers = 2", "workers = 1")
-    cut = config.index('[[sweep.schedule]]\nname = "cosine"')
-    config = config[:cut] + config[config.index("[sampler_options.ddim]"):]
+    assert "steps = [3, 10]" in config
+    config += "min_items = 4\nconfidence = 0.9\n"            # [decide] is the last table
     (scenario / "config.toml").write_text(config)
     out = root / "run"
     r = run_vocobench("demo", "--scenario", str(scenario), "--out", str(out), "--columns",

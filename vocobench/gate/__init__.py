@@ -23,6 +23,7 @@ _EXPORTS = {
     "resolution_lines": "outputs", "verdict_line": "outputs", "SizePlan": "plan",
     "plan_size": "plan", "DEFAULT_ALLOW": "policy", "Allowance": "policy",
     "Policy": "policy", "load_policy": "policy", "assert_no_regression": "pytest_helper",
+    "ab_compare": "ab",
 }
 
 
