@@ -7,6 +7,8 @@ the normal-approximation formula with scipy.stats.norm (Chow, Shao & Wang 2008, 
 """
 from __future__ import annotations
 
+import re
+
 import json
 import math
 import sys
@@ -115,6 +117,10 @@ def test_terminal_table_marks_the_recommended_row(tmp_path, capsys):
     run = _run(tmp_path, -0.04, rtf={Y: 0.01, X: 0.02, REF: 0.1})
     render_report(run, ReportOptions(**FAST, metrics=("stoi",), margins={"stoi": 0.1},
                                      rtf_budget=0.05), echo=True)
-    lines = capsys.readouterr().out.splitlines()
-    assert "Recommended" in next(x for x in lines if x.startswith("Configuration"))
-    assert any(x.startswith(X) and "◀ (b) best within the RTF budget" in x for x in lines)
+    out = capsys.readouterr().out
+    lines = out.splitlines()
+    # the terminal view (report/terminal.py) marks the row with ★ and names its role in the legend
+    assert any(re.match(rf"^★\s+{re.escape(X)}\s", x) for x in lines), out
+    flat = " ".join(out.split())
+    legend = flat[flat.index("★ recommended:"):]
+    assert f"{X} (best stoi within the RTF budget)" in legend, legend

@@ -27,8 +27,10 @@ MARGINS = {"mcd_db": 0.5, "pesq_wb": 0.1}
 @pytest.fixture(scope="module")
 def result(tmp_path_factory):
     run_dir = make_run(tmp_path_factory.mktemp("plots"))
+    # 4 utterances: the lowered evidence bars of tests/test_report.py (min_items 4, confidence 0.9)
     res = render_report(run_dir, ReportOptions(margins=MARGINS, rtf_budget=0.2, resamples=300,
-                                               plots=False, page=False), echo=False)
+                                               plots=False, page=False, min_items=4,
+                                               confidence=0.9), echo=False)
     return run_dir, res
 
 

@@ -232,8 +232,9 @@ save_audio = "none"
     assert len((out / "items.jsonl").read_text().splitlines()) == 4
     # compare: the user column is compared like a built-in one
     report = tmp_path / "compare.json"
-    c = _cli("compare", str(out), str(out), "--min-items", "2", "--json", str(report),
-                      cwd=tmp_path)
+    # 2 utterances, 2 gated tests: only α = 0.5 lets an exact paired test reach α/m = 2^-2
+    c = _cli("compare", str(out), str(out), "--min-items", "2", "--confidence", "0.5",
+             "--json", str(report), cwd=tmp_path)
     assert c.returncode == 0, c.stdout + c.stderr
     doc = json.loads(report.read_text())
     assert "segsnr" in json.dumps(doc) and "stoi" in json.dumps(doc)
