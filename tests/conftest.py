@@ -5,6 +5,7 @@ Nothing here is autouse; fixtures are opt-in by name.
 from __future__ import annotations
 
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -71,3 +72,28 @@ def run_vocobench(*args: str, cwd: Path, timeout: float = 180) -> subprocess.Com
     env.setdefault("OMP_NUM_THREADS", "1")
     return subprocess.run([sys.executable, "-m", "vocobench", *args], cwd=str(cwd), env=env,
                           capture_output=True, text=True, timeout=timeout)
+
+
+DEMO_TESTSET = REPO_ROOT / "scenarios" / "pier-announcements" / "testset"
+# the sections most small test runs share: one cosine schedule, STOI only, one timed call
+COSINE_STOI_ONE_TIMING = """[[sweep.schedule]]
+name = "cos"
+kind = "cosine"
+[metrics]
+use = ["stoi"]
+[timing]
+repeats = 1
+utterances = 1
+"""
+
+
+def small_config(tmp: Path, vocoder: str, sweep: str, rest: str = "",
+                 utterances: tuple[str, ...] = ("pier03",)) -> Path:
+    """Copy a few demo recordings to ``tmp/ts`` and write ``tmp/cfg.toml``: the ``[vocoder]``
+    lines, the test set, the ``[sweep]`` lines, then ``rest`` (further tables)."""
+    (tmp / "ts").mkdir(exist_ok=True)
+    for u in utterances:
+        shutil.copy(DEMO_TESTSET / f"{u}.wav", tmp / "ts" / f"{u}.wav")
+    cfg = tmp / "cfg.toml"
+    cfg.write_text(f'[vocoder]\n{vocoder}\n[testset]\npath = "ts"\n[sweep]\n{sweep}\n{rest}')
+    return cfg

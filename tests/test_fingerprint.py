@@ -10,14 +10,13 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import shutil
 import sys
 import tomllib
 from pathlib import Path
 
 import pytest
 
-from conftest import run_vocobench
+from conftest import COSINE_STOI_ONE_TIMING, run_vocobench, small_config
 from vocobench import fingerprint
 from vocobench.config import parse_config
 from vocobench.store import read_jsonl
@@ -49,30 +48,8 @@ def _project(tmp: Path, extra: str = "") -> Path:
     (pkg / "__init__.py").write_text("")
     (pkg / "model.py").write_text(MODEL)
     (pkg / "helpers.py").write_text("GAIN = 0.01\n")
-    (tmp / "ts").mkdir()
-    shutil.copy(DEMO / "pier03.wav", tmp / "ts" / "pier03.wav")
-    cfg = tmp / "cfg.toml"
-    cfg.write_text(f"""
-[vocoder]
-target = "vpkg.model:Voc"
-{extra}
-[testset]
-path = "ts"
-[sweep]
-steps = [1, 2]
-seeds = [0]
-[[sweep.schedule]]
-name = "cos"
-kind = "cosine"
-[metrics]
-use = ["stoi"]
-[timing]
-repeats = 1
-utterances = 1
-[output]
-save_audio = "none"
-""")
-    return cfg
+    return small_config(tmp, f'target = "vpkg.model:Voc"\n{extra}', "steps = [1, 2]\nseeds = [0]",
+                        COSINE_STOI_ONE_TIMING + '[output]\nsave_audio = "none"\n')
 
 
 def _config(cfg: Path):

@@ -8,7 +8,6 @@ utterances × 2 seeds = 48 items, one failed). Exit codes are the CLI's document
 from __future__ import annotations
 
 import json
-import shutil
 import sys
 import tomllib
 from pathlib import Path
@@ -17,7 +16,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from conftest import REPO_ROOT  # noqa: E402
+from conftest import COSINE_STOI_ONE_TIMING, REPO_ROOT, small_config  # noqa: E402
 from test_report_fixture import make_run  # noqa: E402
 from vocobench.cli import main  # noqa: E402
 from vocobench.config import parse_config  # noqa: E402
@@ -130,28 +129,8 @@ class Voc:
 
 def _failing_config(tmp: Path, failing: tuple[int, ...], extra: str = "") -> Path:
     (tmp / "failing.py").write_text(f"FAILING = {failing!r}\n" + RAISING)
-    (tmp / "ts").mkdir(exist_ok=True)
-    for u in ("pier01", "pier03"):
-        shutil.copy(TS / f"{u}.wav", tmp / "ts" / f"{u}.wav")
-    cfg = tmp / "cfg.toml"
-    cfg.write_text(f"""
-[vocoder]
-target = "failing:Voc"
-[testset]
-path = "ts"
-[sweep]
-steps = [1, 2]
-[[sweep.schedule]]
-name = "cos"
-kind = "cosine"
-[metrics]
-use = ["stoi"]
-[timing]
-repeats = 1
-utterances = 1
-{extra}
-""")
-    return cfg
+    return small_config(tmp, 'target = "failing:Voc"', "steps = [1, 2]",
+                        COSINE_STOI_ONE_TIMING + extra + "\n", utterances=("pier01", "pier03"))
 
 
 @pytest.fixture
@@ -186,18 +165,8 @@ def test_failed_share_above_the_configured_limit_exits_1(tmp_path, capsys, forge
 
 
 def _timing_config(tmp: Path) -> Path:
-    (tmp / "ts").mkdir()
-    shutil.copy(TS / "pier03.wav", tmp / "ts" / "pier03.wav")
-    cfg = tmp / "cfg.toml"
-    cfg.write_text("""
-[vocoder]
-target = "vocobench.analytic:AnalyticDenoiser"
-[testset]
-path = "ts"
-[sweep]
-steps = [1, 2]
-samplers = ["ddim"]
-[metrics]
+    return small_config(tmp, 'target = "vocobench.analytic:AnalyticDenoiser"',
+                        'steps = [1, 2]\nsamplers = ["ddim"]', """[metrics]
 use = ["stoi"]
 [timing]
 warmup = 1
@@ -212,7 +181,6 @@ resamples = 200
 plots = false
 page = false
 """)
-    return cfg
 
 
 class Killed(BaseException):
