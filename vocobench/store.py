@@ -148,13 +148,25 @@ class Journal:
         """Drop a torn last line left by a kill mid-write."""
         if not self.path.exists():
             return
-        data = self.path.read_bytes()
-        if data and not data.endswith(b"\n"):
-            keep = data[: data.rfind(b"\n") + 1]
-            with open(self.path, "wb") as f:
-                f.write(keep)
-                f.flush()
-                os.fsync(f.fileno())
+        with open(self.path, "rb+") as f:          # look at the end only: journals grow large
+            size = f.seek(0, os.SEEK_END)
+            if size == 0:
+                return
+            f.seek(size - 1)
+            if f.read(1) == b"\n":
+                return
+            pos = size                              # scan back, a block at a time, to the last \n
+            while pos > 0:
+                start = max(0, pos - 65536)
+                f.seek(start)
+                cut = f.read(pos - start).rfind(b"\n")
+                if cut >= 0:
+                    pos = start + cut + 1
+                    break
+                pos = start
+            f.truncate(pos)
+            f.flush()
+            os.fsync(f.fileno())
 
     def close(self) -> None:
         if self._f is not None:
