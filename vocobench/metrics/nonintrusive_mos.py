@@ -41,7 +41,7 @@ WINDOW_S = 9.01                     # model input length (DNS challenge dnsmos_l
 WINDOW_HOP_S = 1.0
 # P.808 head input: log-mel of n_fft 321, hop 160, 120 bands, (power_to_db(ref=max) + 40) / 40.
 MEL_N_FFT, MEL_HOP, MEL_BANDS = 321, 160, 120
-# Third-order polynomial maps of the raw P.835 outputs to MOS (dnsmos_local.py, non-personalised
+# Second-order (quadratic) polynomial maps of the raw P.835 outputs to MOS (dnsmos_local.py, non-personalised
 # model), coefficients highest power first.
 POLY_SIG = (-0.08397278, 1.22083953, 0.0052439)
 POLY_BAK = (-0.13166888, 1.60915514, -0.39604546)

@@ -140,7 +140,7 @@ def periodicity(x: np.ndarray, sr: int, fmin: float, fmax: float, hop: int) -> n
     length = int(math.ceil(PERIODICITY_PERIODS * sr / fmin))
     nfft = 1 << int(math.ceil(math.log2(2 * length)))
     x = np.asarray(x, dtype=np.float64)
-    frames = frame_signal(np.pad(x, (length // 2, length)), length, hop)[: n_frames(x.size, hop)]
+    frames = centred_frames(x, length, hop)
     window = np.hanning(length + 2)[1:-1]                  # Hann without the zero end points
     lo, hi = max(1, int(math.floor(sr / fmax))), min(length - 2, int(math.ceil(sr / fmin)))
     r_w = _autocorrelation(window[None, :], nfft)[0, : hi + 2]

@@ -5,7 +5,6 @@ fraction of the trajectory, next to standard schedules of the same length.
 """
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 from typing import Any, Mapping
@@ -67,17 +66,12 @@ def write_outputs(out: Path, s: Mapping[str, Any], training: NoiseSchedule | Non
     write_atomic(d / "search.json", dumps(s) + "\n")
     toml = "".join(toml_block(r, t["steps"], t["sampler"]) + "\n" for t in s["targets"] for r in t["finalists"])
     write_atomic(d / "winners.toml", toml)
-    write_atomic(d / "winners.json", json.dumps([{"steps": t["steps"], "sampler": t["sampler"], **r}
-                                                 for t in s["targets"] for r in t["finalists"]],
-                                                indent=1, default=_plain) + "\n")
+    write_atomic(d / "winners.json", dumps([{"steps": t["steps"], "sampler": t["sampler"], **r}
+                                            for t in s["targets"] for r in t["finalists"]]) + "\n")
     write_atomic(d / "summary.md", summary_md(s))
     if plots:
         plot_trace(s, d / "search_trace.png")
         plot_schedules(s, training, d / "search_schedules.png")
-
-
-def _plain(o: Any) -> Any:
-    return None if isinstance(o, float) and not math.isfinite(o) else float(o)
 
 
 def plot_trace(s: Mapping[str, Any], path: Path) -> None:
