@@ -31,12 +31,9 @@ import pandas as pd
 
 from .. import __version__
 from ..errors import InputError
-from ..report.decide import recommend
 from ..report.recommendation import (RECOMMENDATION_FILE, check_recommendation,
                                      read_recommendation, recommendation_document)
-from ..report.render import check_options, options_for
-from ..report.table import build_table
-from ..stats import BootstrapSettings, summarise
+from ..report.render import decide, options_for
 from ..store import ITEM_ORDER, Run, dumps, items_frame, load_run, write_atomic
 
 BASELINE_FORMAT = "vocobench-baseline/1"
@@ -96,18 +93,8 @@ def run_recommendation(run: Run) -> dict[str, Any] | None:
     path = Path(run.path) / RECOMMENDATION_FILE
     if path.is_file():
         return read_recommendation(path)
-    opts = options_for(run, None)
-    st = summarise(run, reference=check_options(opts, run),
-                   settings=BootstrapSettings(opts.confidence, opts.resamples, opts.seed, opts.method),
-                   reference_source=opts.source, reference_field="decide.reference")
-    if not st.columns:
-        return None
-    valued = tuple(c for c in st.columns
-                   if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
-    if opts.metrics is None and valued:
-        opts = opts.replace(metrics=valued)
-    decision = recommend(st, build_table(st), opts) if opts.metrics else None
-    return recommendation_document(decision, opts)
+    opts, _, st, _, decision = decide(run, options_for(run, None))
+    return recommendation_document(decision, opts) if st.columns else None
 
 
 def baseline_text(run: Run) -> str:

@@ -217,19 +217,10 @@ def worst(run: "Run", column: str, labels: Sequence[str], top: int) -> "pd.DataF
 
 
 def _per_config(run: "Run", args: argparse.Namespace, labels: list[str]) -> int:
-    from ..stats import BootstrapSettings, summarise
-    from .decide import recommend
-    from .render import check_options, options_for
-    from .table import build_table
+    from .render import decide, options_for
     from .terminal import check_choice, console, echo_table
 
-    opts = options_for(run, None)
-    st = summarise(run, reference=check_options(opts, run), reference_source=opts.source,
-                   settings=BootstrapSettings(opts.confidence, opts.resamples, opts.seed,
-                                              opts.method), reference_field="decide.reference")
-    table = build_table(st)
-    valued = tuple(c for c in st.columns if table[f"{c}_mean"].notna().any())
-    decision = recommend(st, table, opts.replace(metrics=opts.metrics or valued)) if valued else None
+    _, _, st, table, decision = decide(run, options_for(run, None))
     if args.format != "table":
         chosen = table[table["config"].isin(labels)].copy()
         chosen["recommended"] = chosen["config"].isin(decision.recommended if decision else [])

@@ -21,7 +21,7 @@ from typing import Any, Mapping
 
 from ..params import (Boolean, Integer, ListOf, MapOf, OrOff, Param, Real, String, Table,
                       with_defaults)
-from ..stats import BOOTSTRAP
+from ..stats import BOOTSTRAP, BootstrapSettings
 
 DEFAULT_MARGIN_REL = 0.05       # our choice: 5 % of the reference mean, stated in every report
 DEFAULT_RTF_BUDGET = 1.0        # real time (RTF = synthesis time / audio duration)
@@ -89,6 +89,11 @@ class ReportOptions:
     svg: bool
     page: bool
     source: str = "[decide]"
+
+    @property
+    def settings(self) -> "BootstrapSettings":
+        """The bootstrap settings these options ask for."""
+        return BootstrapSettings(self.confidence, self.resamples, self.seed, self.method)
 
     def __post_init__(self) -> None:
         DECIDE.apply(self, self.source)

@@ -20,7 +20,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..keys import ConfigKey, is_directed
-from ..stats import BootstrapSettings, RunStatistics, summarise
+from ..stats import RunStatistics, summarise
 from ..store import Run, load_run, write_atomic
 from ..textfmt import csv_text, latex_table, md_cell, md_table
 from .basis import Basis, basis
@@ -81,6 +81,24 @@ def check_options(opts: ReportOptions, run: Any) -> ConfigKey | None:
     return ref
 
 
+def decide(run: Run, opts: ReportOptions) -> tuple[ReportOptions, ConfigKey | None, RunStatistics,
+                                                 pd.DataFrame, Recommendation | None]:
+    """Statistics, table and recommendation of a loaded run under ``opts``: the one path the
+    report, ``vocobench show`` and ``baseline freeze`` share. Without ``decide.metrics`` every
+    column with a finite mean is decided on. Returns (options as used, chosen reference or None,
+    statistics, table with the recommended rows marked, recommendation or None)."""
+    ref = check_options(opts, run)
+    st = summarise(run, reference=ref, settings=opts.settings, reference_source=opts.source,
+                   reference_field="decide.reference")
+    if opts.metrics is None:                      # default: every column that has values
+        with_values = tuple(c for c in st.columns
+                            if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
+        opts = opts.replace(metrics=with_values) if with_values else opts
+    table = build_table(st)
+    decision = recommend(st, table, opts) if st.columns and opts.metrics else None
+    return opts, ref, st, table, decision
+
+
 def render_report(run_dir: str | Path | Run, options: ReportOptions | None = None,
                   echo: bool = True) -> ReportResult:
     """Compute statistics of a stored run and write every report file.
@@ -99,25 +117,15 @@ def render_report(run_dir: str | Path | Run, options: ReportOptions | None = Non
     run_dir = Path(run.path)
     opts = options_for(run, options)
     digest = report_digest(run, opts)
-    ref = check_options(opts, run)
-    settings = BootstrapSettings(opts.confidence, opts.resamples, opts.seed, opts.method)
-    st = summarise(run, reference=ref, settings=settings, reference_source=opts.source,
-                   reference_field="decide.reference")
+    opts, ref, st, table, decision = decide(run, opts)
     labels = {c.label for c in st.configs}
     for lab in opts.listen or ():
         if ConfigKey.parse(lab).label not in labels:
             raise InputError("configuration not in this run; valid: " + ", ".join(sorted(labels)),
                              source=opts.source, field="decide.listen", value=lab)
-    if opts.metrics is None:                      # default: every column that has values
-        with_values = tuple(c for c in st.columns
-                            if np.isfinite(st.metrics.loc[st.metrics["column"] == c, "mean"]).any())
-        opts = opts.replace(metrics=with_values) if with_values else opts
-    table = build_table(st)
-    if st.columns and opts.metrics:
-        decision = recommend(st, table, opts)      # also marks the recommended rows in `table`
+    if decision is not None:
         text = decision.text
     else:
-        decision = None
         text = "The run has no metric values; only latency is reported.\n\n" + CAUTION + "\n"
     rests_on = basis(run)
     note = rests_on.reference_note(st.reference, chosen=ref is not None)

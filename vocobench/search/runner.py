@@ -57,7 +57,7 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
     ref_spec, ref_steps = _reference(opts, plugin, cfg.source)
     samplers = opts.samplers or cfg.samplers or plugin.samplers()
     split = split_utterances(ts.utterances, opts.holdout_fraction, opts.stratify, opts.split_seed)
-    settings = BootstrapSettings(decide.confidence, decide.resamples, decide.seed, decide.method)
+    settings = decide.settings
     n_workers = workers or cfg.workers
     targets = []
     with RunLock(out):
