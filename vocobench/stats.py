@@ -20,6 +20,7 @@ is :func:`paired_comparison` and :func:`holm_family`, used by the report and the
 """
 from __future__ import annotations
 
+import math
 import warnings
 from dataclasses import dataclass, field, replace
 from typing import Any, Iterable, Mapping, Sequence
@@ -167,6 +168,13 @@ def holm(pvalues: Sequence[float]) -> np.ndarray:
         res[order] = adj
         out[ok] = res
     return out
+
+
+def within_margin(bound: float, margin: float, higher_is_better: bool) -> bool:
+    """Non-inferiority by the confidence-interval rule (e.g. Wellek 2010): the one-sided bound of
+    the difference on the worse side lies inside the margin — above ``−margin`` where higher is
+    better, below ``+margin`` where lower is better. A NaN bound never passes."""
+    return math.isfinite(bound) and (bound > -margin if higher_is_better else bound < margin)
 
 
 def pareto_mask(cost: Sequence[float], quality: Sequence[float], higher_is_better: bool) -> np.ndarray:

@@ -31,7 +31,7 @@ from typing import Callable
 
 import pandas as pd
 
-from ..stats import RunStatistics
+from ..stats import RunStatistics, within_margin
 from ..textfmt import fmt, fmt_p, interval
 from .options import ReportOptions
 from .support import smallest, ties, too_few, undecided
@@ -102,7 +102,7 @@ def recommend(st: RunStatistics, table: pd.DataFrame, opts: ReportOptions) -> Re
                 bound, ok = 0.0, math.isfinite(float(t.loc[c, f"{m}_mean"]))
             else:
                 bound = float(t.loc[c, f"{m}_diff_bound"])
-                ok = math.isfinite(bound) and (bound > -margin if hib else bound < margin)
+                ok = within_margin(bound, margin, hib)
             checks.append({"config": c, "column": m, "bound": bound, "margin": margin, "passed": ok})
             ok_all &= ok
         passed[c] = ok_all

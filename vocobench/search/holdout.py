@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 from typing import Any, Mapping, Sequence
 
-from ..stats import BootstrapSettings, PairedResult, holm_family, paired_comparison
+from ..stats import BootstrapSettings, PairedResult, holm_family, paired_comparison, within_margin
 from .objective import Objective, utterance_means
 
 
@@ -21,8 +21,7 @@ def verdict(r: PairedResult, margin: float, confidence: float) -> str:
     gain = r.bound_lower if r.higher_is_better else -r.bound_upper
     if math.isfinite(gain) and gain > 0 and r.p_holm < 1 - confidence:
         return "better"
-    wb = r.worse_bound
-    if math.isfinite(wb) and (wb > -margin if r.higher_is_better else wb < margin):
+    if within_margin(r.worse_bound, margin, r.higher_is_better):
         return "non-inferior"
     return "not shown non-inferior"
 
