@@ -9,6 +9,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
 
 from ..errors import InputError
+from ..textfmt import md_table
 from .kinds import Constraint, Where, toml_text
 
 REQUIRED: Any = type("Required", (), {"__repr__": lambda self: "REQUIRED"})()
@@ -142,12 +143,9 @@ class Table(Constraint):
         rows = list(self._params.values())
         out = [f"### {head}", ""] + ([self.doc, ""] if self.doc else [])
         if rows:
-            out += ["| key | type | range | default | description |",
-                    "| --- | --- | --- | --- | --- |"]
-            out += ["| " + " | ".join(_cell(c) for c in (
-                f"`{p.name}`", p.kind.type_name, p.kind.range_text(), _default_text(p), p.doc))
-                + " |" for p in rows]
-            out.append("")
+            out.append(md_table(["key", "type", "range", "default", "description"],
+                                [[f"`{p.name}`", p.kind.type_name, p.kind.range_text(),
+                                  _default_text(p), p.doc] for p in rows]))
         else:
             out += ["No options.", ""]
         if self.rules:
@@ -207,5 +205,3 @@ def _default_text(p: Param) -> str:
     return f"`{toml_text(p.default)}`"
 
 
-def _cell(text: str) -> str:
-    return str(text).replace("|", "\\|").replace("\n", " ")

@@ -13,7 +13,7 @@ import numpy as np
 
 from ..schedules import NoiseSchedule, cosine, subsequence
 from ..store import dumps, write_atomic
-from ..textfmt import fmt, fmt_p
+from ..textfmt import fmt, fmt_p, md_table
 from ..samplers import log_snr
 
 
@@ -47,15 +47,15 @@ def summary_md(s: Mapping[str, Any]) -> str:
             continue
         lines += ["Search-split scores are **optimistic** (the candidates were selected on them). "
                   "Held-out: fresh seeds, utterances never seen by the search; difference = candidate "
-                  "− reference with its bootstrap interval, Holm-adjusted Wilcoxon p.", "",
-                  "| candidate | metric | optimistic (search) | reference (search) | held-out diff "
-                  "[interval] | margin | p (Holm) | verdict |", "|---|---|--:|--:|--:|--:|--:|---|"]
-        for r in t["finalists"]:
-            for col, h in r["held_out"].items():
-                lines.append(f"| {r['name']} | {col} | {fmt(r['optimistic_search_split'].get(col))} "
-                             f"| {fmt(t['reference_search_split'].get(col))} | {fmt(h['diff'])} "
-                             f"[{fmt(h['diff_low'])}, {fmt(h['diff_high'])}] | {fmt(h['margin'])} "
-                             f"| {fmt_p(h['p_holm'])} | {h['verdict']} |")
+                  "− reference with its bootstrap interval, Holm-adjusted Wilcoxon p.", ""]
+        lines.append(md_table(
+            ["candidate", "metric", "optimistic (search)", "reference (search)",
+             "held-out diff [interval]", "margin", "p (Holm)", "verdict"],
+            [[r["name"], col, fmt(r["optimistic_search_split"].get(col)),
+              fmt(t["reference_search_split"].get(col)),
+              f"{fmt(h['diff'])} [{fmt(h['diff_low'])}, {fmt(h['diff_high'])}]", fmt(h["margin"]),
+              fmt_p(h["p_holm"]), h["verdict"]]
+             for r in t["finalists"] for col, h in r["held_out"].items()], align="llrrrrrl").rstrip("\n"))
         lines += ["", *(f"* {r['name']} ({r['space']}): **{r['overall']}**" for r in t["finalists"]), ""]
     return "\n".join(lines) + "\n"
 
