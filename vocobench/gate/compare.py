@@ -24,7 +24,7 @@ from .baseline import load_side
 from .gating import cells, check_size, effective_settings, select_gated
 from .latency import LatencyResult, hardware_differences, stored_latency
 from .match import (UKEY, comparability, compared_columns, config_items, config_pairs, parse_match,
-                    prepared, side_configs)
+                    prepared, shared_seeds, side_configs)
 from .policy import Policy, resolve_policy
 from .verdict import (VERDICTS, Comparison, ConfigResult, MetricResult, config_verdict, metric_brief,
                       metric_verdict)
@@ -63,18 +63,10 @@ def compare_runs(baseline: "str | Path | Run", candidate: "str | Path | Run",
     pairs = config_pairs(*configs, match)
     if not pairs:
         raise InputError("the runs have no configuration in common")
-    bi, ci = prepared(base), prepared(cand)
-    seeds_b, seeds_c = sorted(set(bi["seed"])), sorted(set(ci["seed"]))
-    common = sorted(set(seeds_b) & set(seeds_c))
-    comp.seeds = {"baseline": seeds_b, "candidate": seeds_c, "used": common or "each run's own"}
-    if common:
-        if seeds_b != seeds_c:
-            comp.notes.append(f"seeds differ (baseline {seeds_b}, candidate {seeds_c}); "
-                              f"only the shared seeds {common} are compared")
-        bi, ci = bi[bi["seed"].isin(common)], ci[ci["seed"].isin(common)]
-    else:
-        comp.notes.append(f"no seed in common (baseline {seeds_b}, candidate {seeds_c}); utterance "
-                          "means over each run's own seeds are compared (different noise draws)")
+    bi, ci, comp.seeds, note = shared_seeds(prepared(base), prepared(cand))
+    common = comp.seeds["used"] != "each run's own"
+    if note:
+        comp.notes.append(note)
     cols, col_notes = compared_columns(base, cand)
     if not cols:
         raise InputError("no metric column to compare: " + ("; ".join(col_notes) or

@@ -178,3 +178,20 @@ def config_items(bi: pd.DataFrame, ci: pd.DataFrame, b: ConfigKey, c: ConfigKey,
     res.new_failures = int((both["b"].astype(bool) & ~both["c"].astype(bool)).sum())
     res.paired = len(set(xb.loc[xb["_ok"], UKEY]) & set(xc.loc[xc["_ok"], UKEY]))
     return res
+
+
+def shared_seeds(bi: pd.DataFrame, ci: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame,
+                                                           dict[str, Any], str]:
+    """Keep only the seeds both prepared item tables have (same seed, same noise draw: common
+    random numbers); with none in common keep each side's own. Returns both tables, the seeds
+    record and a note for the reader ('' when the seeds agree)."""
+    seeds_b, seeds_c = sorted(set(bi["seed"])), sorted(set(ci["seed"]))
+    common = sorted(set(seeds_b) & set(seeds_c))
+    record = {"baseline": seeds_b, "candidate": seeds_c, "used": common or "each run's own"}
+    if not common:
+        return bi, ci, record, (f"no seed in common (baseline {seeds_b}, candidate {seeds_c}); "
+                                "utterance means over each run's own seeds are compared "
+                                "(different noise draws)")
+    note = "" if seeds_b == seeds_c else (f"seeds differ (baseline {seeds_b}, candidate "
+                                          f"{seeds_c}); only the shared seeds {common} are compared")
+    return bi[bi["seed"].isin(common)], ci[ci["seed"].isin(common)], record, note

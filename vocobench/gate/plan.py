@@ -44,7 +44,7 @@ from ..runtables import configurations, utterance_means
 from ..store import Run
 from .baseline import load_side
 from .gating import select_gated
-from .match import CFG, UKEY, compared_columns, config_pairs, prepared
+from .match import CFG, UKEY, compared_columns, config_pairs, prepared, shared_seeds
 from .policy import Policy, resolve_policy
 
 DROP_FIELD = "--drop"
@@ -149,6 +149,8 @@ def plan_size(pilot: "str | Path | Run", drops: Mapping[str, float], *, power: f
     else:
         spread = "fresh seeds of the same model: √(2·σ_w²/k), σ_w² the within-utterance seed variance"
     citems = prepared(other) if other is not None else items
+    if other is not None:                   # paired exactly as compare pairs them
+        items, citems = shared_seeds(items, citems)[:2]
     rows = []
     for i in gated:
         b, c = pairs[i]
