@@ -14,7 +14,9 @@ DDIM steps, seeds 0 and 1, metrics MCD and STOI. Prints, as ratios against their
    of the items' ``synth_s``). Target ≤ 30 %.
 3. **batched seeds** — one utterance's seeds through ``TorchDenoiser.sample`` as one batch, one
    generator per item, against the same items one at a time: audio hashes bit-identical, time per
-   item not above batch 1's (target ≤ 1.0×).
+   item not above batch 1's (target ≤ 1.0×). The row also says what ``[run] batch = "auto"`` (the
+   default) chose in the whole-command run: on a CPU it keeps batch 1, because batched waveform
+   networks run slower per item there; the explicit batch is measured anyway.
 
 ``--quick`` uses a 3-layer, 8-channel network: it checks the script, not the figures. The load
 average is printed with each measurement: on a shared machine the figures need an idle one.
@@ -58,7 +60,9 @@ def main() -> int:
         fmt = f"{value:.1%}" if not unit else f"{value:.3f}{unit}"
         tfmt = f"{target:.0%}" if not unit else f"{target:.2f}{unit}"
         print(f"  {name:42s} {fmt:>9s}  target ≤ {tfmt:6s} {'ok' if ok else 'MISSED'}  ({load})")
-    print(f"  batched audio hashes bit-identical to batch 1: {batch['identical']}")
+    print(f"  batched audio hashes bit-identical to batch 1: {batch['identical']}; default "
+          f"settings chose workers {whole['workers']}, batch {whole['batch']} "
+          f"(the run's own words: {whole['why']})")
     print(f"  details: bare {whole['bare_s']:.1f} s ({whole['bare_threads']} threads), run "
           f"{whole['run_s']:.1f} s (sweep synthesis {whole['synth_s']:.1f} s, timing phase "
           f"{whole['timing_s']:.1f} s, {whole['workers']} worker(s), {whole['threads']} thread(s)); "
@@ -74,6 +78,20 @@ def measure_whole(work: Path, cfg) -> dict[str, Any]:
     import bench_harness as bh               # sibling script: its phase instrumentation
 
     phases = bh.Phases()
+    from vocobench.sweep import orchestrate, resources
+
+    chosen: dict[str, Any] = {}
+    inner_jobs, inner_workers = orchestrate.run_jobs, resources.choose_workers
+
+    def spy_jobs(setup, jobs, journal, bar, workers, scheduler):
+        chosen.update(workers=workers, batch=setup.config.batch)
+        return inner_jobs(setup, jobs, journal, bar, workers, scheduler)
+
+    def spy_workers(*a, **k):
+        c = inner_workers(*a, **k)
+        chosen["why"] = c.reason
+        return c
+    orchestrate.run_jobs, orchestrate.choose_workers = spy_jobs, spy_workers
     load = nc.load_average()
     warm = nc.scenario_config(work, utterances=1, steps=[1], seeds=[0], seconds=0.5,
                               **{k: v for k, v in cfg.options.items() if k in nc.TINY})
@@ -89,8 +107,9 @@ def measure_whole(work: Path, cfg) -> dict[str, Any]:
     timing = phases.wall.get("run_timing", 0.0)
     return {"ratio": t["wall"] / bare["wall"], "timing_share": timing / synth, "bare_s": bare["wall"],
             "bare_threads": bare["threads"], "run_s": t["wall"], "synth_s": synth,
-            "timing_s": timing, "workers": r.manifest.get("sweep", {}).get("workers", cfg.workers),
-            "threads": threads, "load": f"{load} at start"}
+            "timing_s": timing, "workers": chosen.get("workers"), "batch": chosen.get("batch"),
+            "why": chosen.get("why", "workers set in the config"), "threads": threads,
+            "load": f"{load} at start"}
 
 
 def measure_batch(work: Path, cfg) -> dict[str, Any]:

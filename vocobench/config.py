@@ -14,8 +14,8 @@ from typing import Any, Mapping
 
 from .errors import InputError
 from .metrics import DEFAULT_METRICS, LENGTH_PARAMS
-from .params import (Boolean, Choice, Custom, Integer, ListOf, MapOf, Param, Real, String, Table, read_toml,
-                     with_defaults)
+from .params import (Boolean, Choice, Custom, Integer, ListOf, MapOf, OrAuto, Param, Real, String,
+                     Table, read_toml, with_defaults)
 from .schedules import ScheduleSpec, make_spec
 
 SAVE_AUDIO = ("first-seed", "all", "none")
@@ -82,7 +82,11 @@ OUTPUT = Table("output", [
     Param("save_audio", Choice(SAVE_AUDIO), SAVE_AUDIO[0], "which synthesised audio is kept"),
 ], doc="Where results go.")
 RUN = Table("run", [
-    Param("workers", Integer(low=1), 1, "parallel synthesis-and-scoring processes"),
+    Param("workers", OrAuto(Integer(low=1)), "auto", "parallel synthesis-and-scoring processes; "
+          "auto: by cores, memory, device and estimated cost (the run says what it chose)"),
+    Param("batch", OrAuto(Integer(low=1)), "auto", "most items of one utterance and configuration "
+          "(its seeds) per vocoder call; auto: batched on an accelerator when the plug-in's items "
+          "do not depend on their batch, one at a time on a CPU"),
     Param("item_timeout_s", Real(low=0, closed="neither", keep_int=True), None,
           "seconds before one item is failed; unset: no limit"),
     Param("scheduler", String(), None,
@@ -140,7 +144,8 @@ class RunConfig:
     timing: TimingConfig = field(default_factory=TimingConfig)
     output_dir: Path | None = None
     save_audio: str = OUTPUT.field("save_audio")
-    workers: int = RUN.field("workers")
+    workers: int | str = RUN.field("workers")
+    batch: int | str = RUN.field("batch")
     item_timeout_s: float | None = None
     scheduler: str | None = None
     max_failed_share: float = RUN.field("max_failed_share")
@@ -185,7 +190,7 @@ def parse_config(data: Mapping[str, Any], base_dir: str | Path = ".", source: st
                      length_tolerance_hops=met["length_tolerance_hops"],
                      timing=TimingConfig(**d["timing"]),
                      output_dir=None if out["dir"] is None else base / out["dir"],
-                     save_audio=out["save_audio"], workers=rn["workers"],
+                     save_audio=out["save_audio"], workers=rn["workers"], batch=rn["batch"],
                      item_timeout_s=rn["item_timeout_s"], scheduler=rn["scheduler"],
                      max_failed_share=rn["max_failed_share"],
                      decide=d["decide"], search=d["search"], source=source, raw=dict(data))

@@ -6,7 +6,10 @@ that turns a denoiser plus a built-in sampler into a vocoder.
 ``vocoder(features, schedule, rng)`` with log-mel ``features`` ``(n_mels, frames)``, a
 :class:`~vocobench.schedules.NoiseSchedule` and a ``numpy.random.Generator``, it returns a 1-D
 waveform of about ``frames * hop_length`` samples. Optional: ``samplers`` (names it implements; it is
-then also passed ``sampler=NAME``), ``version`` (str), ``nfe(schedule, sampler)``, ``synchronize()``.
+then also passed ``sampler=NAME``), ``version`` (str), ``nfe(schedule, sampler)``, ``synchronize()``,
+``accepts_batch = True`` (it is then also called with ``features`` ``(B, n_mels, frames)`` and a
+list of B generators, one per item, and returns ``(B, samples)``; an item's output must not depend
+on the rest of its batch).
 
 **Denoiser** (noise predictor): ``sample_rate``, ``frontend``, ``training_schedule`` (a
 NoiseSchedule or a β list), ``conditioning`` (``"step"``: fractional 0-based training step, or
@@ -213,6 +216,40 @@ class Plugin:
 
         synth.last_schedule = None                                 # type: ignore[attr-defined]
         return synth
+
+    def batch_synthesizer(self, sampler: str, options: Mapping[str, Any] | None = None
+                          ) -> Callable[[np.ndarray, NoiseSchedule, list], list] | None:
+        """``(features, schedule, rngs) -> [waveform, ...]``: one call for ``len(rngs)`` items of
+        the same features, each item's noise from its own generator; ``None`` when the plug-in
+        cannot (an end-to-end vocoder that does not declare ``accepts_batch = True``) or the
+        sampler re-plans per item (``replan_at``)."""
+        opts = dict(options or {})
+        if self.kind == "vocoder":
+            if getattr(self.obj, "accepts_batch", False) is not True:
+                return None
+            self.synthesizer(sampler, opts)                          # checks the sampler name
+            extra = {"sampler": sampler, **opts} if getattr(self.obj, "samplers", None) else {}
+
+            def voc(features: np.ndarray, schedule: NoiseSchedule, rngs: list) -> list:
+                batch = np.repeat(np.asarray(features)[None], len(rngs), axis=0)
+                return list(self.obj(batch, schedule, list(rngs), **extra))
+            return voc
+        kw = {"prediction": self.prediction, "law": self.noise_law}
+        if make_plan(sampler, _probe_schedule(), "level", None, opts, **kw).adaptive:
+            return None
+        self.synthesizer(sampler, opts)                              # same checks as one item
+        den, fe, own_loop = self.obj, self.frontend, _drives_plans(self.obj)
+
+        def many(features: np.ndarray, schedule: NoiseSchedule, rngs: list) -> list:
+            plan = make_plan(sampler, schedule, self.conditioning or "step", self.training_schedule,
+                             opts, **kw)
+            batch = np.repeat(np.asarray(features)[None], len(rngs), axis=0)
+            n = fe.expected_samples(batch.shape[-1])  # type: ignore[union-attr]
+            gens = list(rngs)
+            y = den.sample(plan, batch, n, gens) if own_loop else \
+                run_plan(plan, den.predict_noise, batch, n, gens)
+            return list(y)
+        return many
 
     def synchronize(self) -> None:
         fn = getattr(self.obj, "synchronize", None)

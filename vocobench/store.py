@@ -376,7 +376,10 @@ def load_run(run_dir: str | Path):
         wanted = set(keys)
         ignored = {"items": sum(r.get("key") not in wanted for r in items),
                    "timing": sum(r.get("key") not in wanted for r in timing)}
-        items = [r for r in items if r.get("key") in wanted]
+        # the plan's order, not the order items finished in: with several workers that order
+        # changes from run to run, and resampling statistics must not depend on it
+        order = {k: i for i, k in enumerate(keys)}
+        items = sorted((r for r in items if r.get("key") in wanted), key=lambda r: order[r["key"]])
         timing = [r for r in timing if r.get("key") in wanted]
     return Run(run_dir, manifest, items_frame(items), pd.DataFrame(timing), ignored)
 

@@ -16,10 +16,10 @@ defaults from tables, so each default is written once; ``Table.markdown`` render
 """
 from __future__ import annotations
 
-from .kinds import (Boolean, Choice, Constraint, Custom, Integer, ListOf, MapOf, OrOff, Real,
-                    String, Where, is_integer, is_number)
+from .kinds import (Boolean, Choice, Constraint, Custom, Integer, ListOf, MapOf, OrAuto, OrOff,
+                    Real, String, Where, is_integer, is_number)
 from .table import REQUIRED, Param, Table, check, markdown, read_toml, with_defaults
 
 __all__ = ["REQUIRED", "Boolean", "Choice", "Constraint", "Custom", "Integer", "ListOf", "MapOf",
-           "OrOff", "Param", "Real", "String", "Table", "Where", "check", "is_integer",
+           "OrAuto", "OrOff", "Param", "Real", "String", "Table", "Where", "check", "is_integer",
            "is_number", "markdown", "read_toml", "with_defaults"]

@@ -250,6 +250,31 @@ class OrOff(Constraint):
 
 
 @dataclasses.dataclass(frozen=True)
+class OrAuto(Constraint):
+    """``inner``, or the word ``"auto"`` (kept as the string ``"auto"``): the program decides."""
+
+    inner: Constraint
+
+    @property
+    def type_name(self) -> str:         # type: ignore[override]
+        return f"{self.inner.type_name} or \"auto\""
+
+    def describe(self) -> str:
+        return f"{self.inner.describe()}, or \"auto\""
+
+    def range_text(self) -> str:
+        return self.inner.range_text()
+
+    def convert(self, value: Any, where: Where) -> Any:
+        if isinstance(value, str) and value.lower() == "auto":
+            return "auto"
+        try:
+            return self.inner.convert(value, where)
+        except InputError:
+            raise self.fail(value, where) from None
+
+
+@dataclasses.dataclass(frozen=True)
 class Custom(Constraint):
     """A value parsed by ``parse(value)``; a ``ValueError`` becomes the error message."""
 

@@ -21,7 +21,7 @@ from ..samplers import steps_within
 from ..schedules import ScheduleSpec, geometric, make_spec
 from ..stats import BootstrapSettings
 from ..store import ITEMS, Journal, RunLock, read_jsonl
-from ..sweep import prepare
+from ..sweep import prepare, process_cap
 from .engine import BudgetSpent, Evaluator
 from .holdout import compare, overall
 from .objective import Objective, pareto_front, utterance_means
@@ -59,6 +59,8 @@ def search(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool 
     split = split_utterances(ts.utterances, opts.holdout_fraction, opts.stratify, opts.split_seed)
     settings = decide.settings
     n_workers = workers or cfg.workers
+    if n_workers == "auto":
+        n_workers = 1 if scheduler or cfg.scheduler else process_cap(base).value
     targets = []
     with RunLock(out):
         journal = Journal(out / ITEMS)

@@ -10,7 +10,8 @@ Modules, each importing only those listed after it: ``orchestrate`` (run, back-e
 reports, failure verdict) → ``preflight`` (reuse, estimate, plan), ``local`` (spawn pool),
 ``dask_backend`` → ``remote`` (chunks, worker-process state) → ``timing_phase`` → ``worker`` (one
 job: synthesis, scoring, timeouts) → ``plan`` (grid, jobs, keys, fingerprint, manifest);
-``progress`` stands alone. Other packages use only the names below.
+``progress`` stands alone; ``resources`` (workers and batch size) reads the plan and the
+contract probe. Other packages use only the names below.
 """
 from __future__ import annotations
 
@@ -20,10 +21,11 @@ from .orchestrate import render, run, run_jobs, run_parallel
 from .plan import GridPoint, Job, Setup, build_grid, job_key, package_versions, prepare, timing_utterances
 from .progress import Progress
 from .remote import chunk_jobs
+from .resources import process_cap
 from .timing_phase import run_timing, timing_plan
 from .worker import Worker, item_rng, load_utterance
 
 __all__ = ["GridPoint", "Job", "Progress", "Setup", "Worker", "WorkerDied", "build_grid",
            "chunk_jobs", "item_rng", "job_key", "load_utterance", "package_versions", "prepare",
-           "render", "run", "run_dask", "run_jobs", "run_local", "run_parallel", "run_timing",
-           "timing_plan", "timing_utterances"]
+           "process_cap", "render", "run", "run_dask", "run_jobs", "run_local", "run_parallel",
+           "run_timing", "timing_plan", "timing_utterances"]

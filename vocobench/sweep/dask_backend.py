@@ -38,7 +38,7 @@ def _dask_chunk(run_id: str, data: Payload, jobs: list[Job]) -> list[Record]:
                                  source=str(missing[0]))
             slot = _DASK_SLOTS[run_id] = Slot(data)
         with slot.thread_limit():
-            return [slot.process(j) for j in jobs]
+            return list(slot.run(jobs))
 
 
 def _dask_forget(run_id: str) -> bool:

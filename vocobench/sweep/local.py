@@ -65,8 +65,8 @@ def _local_worker(data: bytes, tasks: Any, results: Any) -> None:
                     continue
                 if chunk is None:
                     return
-                for job in chunk:
-                    results.put(("item", slot.process(job)))
+                for rec in slot.run(chunk):
+                    results.put(("item", rec))
                 results.put(("done",))
     except BaseException as e:                          # noqa: BLE001 — reported to the parent
         results.put(("error", portable(e), traceback.format_exc()))
@@ -90,8 +90,8 @@ def run_local(setup: Setup, jobs: Sequence[Job], sink: Sink, workers: int) -> No
     with thread_limit(1, setup.plugin.obj):
         if helpers <= 0:
             for chunk in chunks:
-                for job in chunk:
-                    sink(own.process(job))      # type: ignore[union-attr]
+                for rec in own.run(chunk):      # type: ignore[union-attr]
+                    sink(rec)
             return
         _LocalPool(setup, helpers, workers).run(chunks, own, sink, len(jobs))
 
@@ -126,8 +126,9 @@ class _LocalPool:
                     mine.extend(chunks.popleft() if chunks else self._steal())
                     self._feed(chunks, 0)               # deque empty: the helpers may finish
                 if mine:
-                    sink(own.process(mine.popleft()))       # type: ignore[union-attr]
-                    pending -= 1
+                    for rec in own.process_group(own.next_group(mine)):  # type: ignore[union-attr]
+                        sink(rec)
+                        pending -= 1
                 elif pending:
                     pending -= self._collect(chunks, sink, block=True)
             ok = True

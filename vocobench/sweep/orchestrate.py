@@ -2,8 +2,10 @@
 reports, and the verdict on failures."""
 from __future__ import annotations
 
+import dataclasses
 import json
 import sys
+import time
 from pathlib import Path
 from typing import Any, Sequence
 
@@ -20,6 +22,7 @@ from .local import run_local
 from .plan import Job, Setup, prepare
 from .preflight import estimate, hms, plan_text, reuse_plan
 from .progress import Progress, say
+from .resources import Choice, choose_batch, choose_workers
 from .remote import Record, Sink
 from .timing_phase import missing_repeats, run_timing, sweep_samples, timing_done, timing_plan
 from .worker import Worker
@@ -43,20 +46,40 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
     failed or more than ``[run] max_failed_share`` of them did.
     """
     n_workers = cfg.workers if workers is None else workers
-    if not is_integer(n_workers) or n_workers < 1:
-        raise InputError("must be a positive integer", field="workers", value=n_workers)
+    if n_workers != "auto" and (not is_integer(n_workers) or n_workers < 1):
+        raise InputError("must be a positive integer or \"auto\"", field="workers", value=n_workers)
+    t0 = time.perf_counter()
     setup = prepare(cfg, out_dir)
+    prepare_s = time.perf_counter() - t0
     out = setup.out_dir
     check_writable(out, field="--out" if out_dir is not None else "output.dir", source=cfg.source)
     records = read_jsonl(out / ITEMS, check_item)
     plan = reuse_plan(setup, records, fresh=fresh, retry_failed=retry_failed)
     tdone = {} if fresh else timing_done(read_jsonl(out / TIMING, check_timing))
     mine = {j.key for j in setup.jobs}
-    est = estimate(setup, plan.todo, n_workers, tdone, [r for r in records if r["key"] in mine])
+    sched = scheduler or cfg.scheduler
+    cfg_batch = cfg.batch
+    bchoice = choose_batch(setup, cfg_batch)
+    setup.config = cfg = dataclasses.replace(cfg, batch=bchoice.value)
+    reuse = cfg.timing.reuse_sweep and not sched and cfg.timing.threads == SWEEP_THREADS \
+        and cfg.batch == 1
+    est = estimate(setup, plan.todo, 1 if n_workers == "auto" else n_workers, tdone,
+                   [r for r in records if r["key"] in mine])
+    wchoice = None
+    if n_workers == "auto":
+        wchoice = Choice(1, "the Dask cluster's workers compute") if sched else \
+            choose_workers(setup, plan.todo, est.per_eval_s, prepare_s, reuse)
+        n_workers = wchoice.value
+        if n_workers > 1:
+            est = estimate(setup, plan.todo, n_workers, tdone, [r for r in records if r["key"] in mine])
+    choices = [f"batch {bchoice.value}: {bchoice.reason}"] \
+        if bchoice.value > 1 or cfg_batch not in ("auto", 1) else []
+    if wchoice and not sched:
+        choices.insert(0, f"workers {n_workers} (auto): {wchoice.reason}")
     if dry_run:
-        print(plan_text(setup, plan, est))
+        print(plan_text(setup, plan, est) + "".join("\n" + c for c in choices))
         return out
-    for line in [*plan.lines(setup), est.line()]:
+    for line in [*plan.lines(setup), est.line(), *choices]:
         say(progress, line)
     if est.long:
         print(f"vocobench: warning: this grid is estimated to take {hms(est.seconds or 0)}, over "
@@ -67,15 +90,14 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
         journal = Journal(out / ITEMS)
         try:
             status = {**plan.status, **run_jobs(setup, plan.todo, journal, Progress(len(plan.todo), progress),
-                                                n_workers, scheduler or cfg.scheduler)}
+                                                n_workers, sched)}
         finally:
             journal.close()
         tjobs = [(j, u) for j, u in timing_plan(setup) if status.get(j.key) != "failed"
                  and any(missing_repeats(setup, tdone, j.key))]
         tbar = Progress(len(tjobs), progress, label="timing")
         prior = {}
-        if cfg.timing.reuse_sweep and n_workers == 1 and not (scheduler or cfg.scheduler) \
-                and cfg.timing.threads == SWEEP_THREADS:
+        if reuse and n_workers == 1:
             fresh_keys = {j.key for j in plan.todo}     # computed just now, alone, in this process
             prior = sweep_samples(setup, [r for r in read_jsonl(out / ITEMS, check_item)
                                           if r.get("key") in fresh_keys])
@@ -164,8 +186,8 @@ def run_jobs(setup: Setup, jobs: list[Job], journal: Journal, bar: Progress, wor
         return status
     worker = Worker(setup)
     with thread_limit(SWEEP_THREADS, setup.plugin.obj):
-        for job in jobs:
-            finished(worker.process(job))
+        for rec in worker.run(jobs):
+            finished(rec)
     return status
 
 

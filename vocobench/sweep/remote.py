@@ -14,7 +14,7 @@ import math
 import os
 import pickle
 from pathlib import Path
-from typing import Any, Callable, ContextManager, Sequence
+from typing import Any, Callable, ContextManager, Iterator, Sequence
 
 from ..config import RunConfig
 from ..testset import TestSet
@@ -89,13 +89,18 @@ class Slot:
         """One BLAS/OpenMP thread and one plug-in thread (see :func:`vocobench.timing.thread_limit`)."""
         return thread_limit(1, self.setup.plugin.obj)
 
+    def run(self, jobs: Sequence[Job]) -> Iterator[Record]:
+        """Records of ``jobs`` (:meth:`Worker.run`), after checking their keys are this worker's."""
+        for job in jobs:
+            if job.key not in self.keys:
+                raise RuntimeError(
+                    f"worker {where()} derives different job keys than the main process (job "
+                    f"{job.key}): its vocoder description, metric variants or package versions "
+                    "differ; give every worker the same environment")
+        return self.worker.run(jobs)
+
     def process(self, job: Job) -> Record:
-        if job.key not in self.keys:
-            raise RuntimeError(
-                f"worker {where()} derives different job keys than the main process (job "
-                f"{job.key}): its vocoder description, metric variants or package versions "
-                "differ; give every worker the same environment")
-        return self.worker.process(job)
+        return next(iter(self.run([job])))
 
 
 def where() -> str:

@@ -4,9 +4,9 @@ from __future__ import annotations
 import signal
 import threading
 import time
-from collections import OrderedDict
+from collections import OrderedDict, deque
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 
@@ -63,6 +63,9 @@ class Worker:
     def __init__(self, setup: Setup, cache_size: int = 2) -> None:
         self.s = setup
         self._synth: dict[int, Callable] = {}
+        self._batch_synth: dict[int, Callable | None] = {}
+        b = setup.config.batch
+        self.batch = b if isinstance(b, int) else 1      # "auto" is resolved before the sweep
         self._utt: OrderedDict[int, dict[str, Any]] = OrderedDict()
         self._cache_size = cache_size
 
@@ -96,50 +99,109 @@ class Worker:
 
     def synthesize(self, job: Job) -> tuple[np.ndarray, float]:
         """The vocoder's raw output for ``job`` and its synchronised wall time in seconds."""
-        g, u = self.s.grid[job.point], self.s.testset.utterances[job.utt]
-        feats = self.utterance(job.utt)["feats"]
-        fn = self.synth(job.point)
-        rng = item_rng(job.seed, u)
+        outs, secs = self.synthesize_many([job])
+        return outs[0], secs
+
+    def synthesize_many(self, jobs: Sequence[Job]) -> tuple[list[Any], float]:
+        """Raw outputs of jobs sharing an utterance and configuration, in one vocoder call when
+        there are several (each item's noise from its own generator), and the call's
+        synchronised wall time in seconds."""
+        first = jobs[0]
+        g, u = self.s.grid[first.point], self.s.testset.utterances[first.utt]
+        feats = self.utterance(first.utt)["feats"]
+        timeout = self.s.config.item_timeout_s
         self.s.plugin.synchronize()
         t0 = time.perf_counter()
-        with deadline(self.s.config.item_timeout_s):
-            out = fn(feats, g.schedule, rng)
+        with deadline(timeout and timeout * len(jobs)):
+            if len(jobs) == 1:
+                outs = [self.synth(first.point)(feats, g.schedule, item_rng(first.seed, u))]
+            else:
+                outs = self.batch_synth(first.point)(feats, g.schedule,  # type: ignore[misc]
+                                                     [item_rng(j.seed, u) for j in jobs])
         self.s.plugin.synchronize()
-        return out, time.perf_counter() - t0
+        return list(outs), time.perf_counter() - t0
+
+    def batch_synth(self, p: int) -> Callable | None:
+        """The plug-in's batched synthesiser for grid point ``p`` (None: it cannot batch)."""
+        if p not in self._batch_synth:
+            g = self.s.grid[p]
+            self._batch_synth[p] = self.s.plugin.batch_synthesizer(
+                g.sampler, self.s.config.sampler_options.get(g.sampler))
+        return self._batch_synth[p]
+
+    def next_group(self, queue: "deque[Job]") -> list[Job]:
+        """Pop from ``queue`` the jobs of the next vocoder call: the following jobs of the same
+        utterance and configuration (the seeds), at most ``[run] batch`` of them."""
+        first = queue.popleft()
+        group = [first]
+        limit = self.batch if self.batch > 1 and self.batch_synth(first.point) else 1
+        while queue and len(group) < limit and (queue[0].utt, queue[0].point) == (first.utt, first.point):
+            group.append(queue.popleft())
+        return group
+
+    def run(self, jobs: Iterable[Job]) -> Iterator[dict[str, Any]]:
+        """Records of ``jobs`` in order, consecutive seeds batched as :meth:`next_group` says."""
+        queue = deque(jobs)
+        while queue:
+            yield from self.process_group(self.next_group(queue))
 
     def process(self, job: Job) -> dict[str, Any]:
         """The item record of ``job``: synthesised, checked, saved if asked, scored."""
-        g, u = self.s.grid[job.point], self.s.testset.utterances[job.utt]
-        rec: dict[str, Any] = {"key": job.key, "utt_id": u.id, "utt_sha": u.sha256[:16], "tags": u.tags,
-                               "schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps,
-                               "nfe": g.nfe, "seed": job.seed, "duration_s": u.duration_s,
-                               "status": "ok", "failure": None, "metrics": {}, "notes": {},
-                               "synth_s": None, "rtf": None, "ms_per_nfe": None, "audio_sha": None,
-                               "audio_path": None, "length_diff": None}
+        return self.process_group([job])[0]
+
+    def process_group(self, jobs: Sequence[Job]) -> list[dict[str, Any]]:
+        """Item records of jobs sharing an utterance and configuration, synthesised in one call.
+        A failed batched call is retried item by item, so each failure is its own item's."""
+        recs = [self._record(j) for j in jobs]
         try:
-            entry = self.utterance(job.utt)
+            self.utterance(jobs[0].utt)
             try:
-                out, secs = self.synthesize(job)
+                outs, secs = self.synthesize_many(jobs)
             except ItemFailure:
                 raise
             except Exception as e:
                 raise ItemFailure(f"vocoder raised {type(e).__name__}: {e}") from None
-            used = getattr(self.synth(job.point), "last_schedule", None)
-            if used is not None:            # adaptive samplers: the schedule this item ran
-                rec["schedule_used"] = used
-            y = as_waveform(out)
-            rec.update(synth_s=secs, rtf=secs / u.duration_s, ms_per_nfe=1e3 * secs / max(g.nfe, 1),
-                       audio_sha=audio_sha(y))
-            ref, est, info = self.s.policy.apply(entry["ref"], y, self.s.plugin.frontend.hop_length)
-            rec["length_diff"] = info.get("length_diff")
-            if self._save(job):          # named by the job key: unique whatever the ids
-                rel = Path("audio") / f"{job.key}.flac"
-                save_audio(self.s.out_dir / rel, y, self.s.plugin.sample_rate)
-                rec["audio_path"] = str(rel)
-            self._score(rec, self.states(job.utt), est)
         except ItemFailure as e:
-            rec.update(status="failed", failure=str(e))
-        return rec
+            if len(jobs) > 1:
+                return [self.process(j) for j in jobs]
+            recs[0].update(status="failed", failure=str(e))
+            return recs
+        used = getattr(self.synth(jobs[0].point), "last_schedule", None) if len(jobs) == 1 else None
+        for rec, job, out in zip(recs, jobs, outs):
+            try:
+                self._finish(rec, job, out, secs / len(jobs), len(jobs), used)
+            except ItemFailure as e:
+                rec.update(status="failed", failure=str(e))
+        return recs
+
+    def _record(self, job: Job) -> dict[str, Any]:
+        g, u = self.s.grid[job.point], self.s.testset.utterances[job.utt]
+        return {"key": job.key, "utt_id": u.id, "utt_sha": u.sha256[:16], "tags": u.tags,
+                "schedule": g.spec.name, "sampler": g.sampler, "steps": g.steps,
+                "nfe": g.nfe, "seed": job.seed, "duration_s": u.duration_s,
+                "status": "ok", "failure": None, "metrics": {}, "notes": {},
+                "synth_s": None, "rtf": None, "ms_per_nfe": None, "audio_sha": None,
+                "audio_path": None, "length_diff": None}
+
+    def _finish(self, rec: dict[str, Any], job: Job, out: Any, secs: float, batch: int,
+                used: Any) -> None:
+        """Check, save and score one synthesised item (``secs``: its share of the call)."""
+        g, u = self.s.grid[job.point], self.s.testset.utterances[job.utt]
+        if used is not None:            # adaptive samplers: the schedule this item ran
+            rec["schedule_used"] = used
+        y = as_waveform(out)
+        rec.update(synth_s=secs, rtf=secs / u.duration_s, ms_per_nfe=1e3 * secs / max(g.nfe, 1),
+                   audio_sha=audio_sha(y))
+        if batch > 1:                   # synth_s is then the call's time shared out
+            rec["batch"] = batch
+        ref, est, info = self.s.policy.apply(self.utterance(job.utt)["ref"], y,
+                                             self.s.plugin.frontend.hop_length)
+        rec["length_diff"] = info.get("length_diff")
+        if self._save(job):          # named by the job key: unique whatever the ids
+            rel = Path("audio") / f"{job.key}.flac"
+            save_audio(self.s.out_dir / rel, y, self.s.plugin.sample_rate)
+            rec["audio_path"] = str(rel)
+        self._score(rec, self.states(job.utt), est)
 
     def _score(self, rec: dict[str, Any], states: dict[str, Any], est: np.ndarray) -> None:
         sr = self.s.plugin.sample_rate
