@@ -46,6 +46,7 @@ def main() -> int:
                                  quick=args.quick, seconds=SECONDS)
         whole = measure_whole(work, cfg)
         batch = measure_batch(work, cfg)
+        cores = measure_cores(cfg, quick=args.quick)
     print(f"\nDiffWave-sized denoiser{' (quick: tiny network)' if args.quick else ''}, "
           f"{UTTERANCES} utterances × {SECONDS} s, {STEPS} DDIM steps, seeds {list(SEEDS)}")
     rows = [("whole command / bare loop", whole["ratio"], TARGETS["whole"], "×", whole["load"]),
@@ -67,7 +68,53 @@ def main() -> int:
           f"{whole['run_s']:.1f} s (sweep synthesis {whole['synth_s']:.1f} s, timing phase "
           f"{whole['timing_s']:.1f} s, {whole['workers']} worker(s), {whole['threads']} thread(s)); "
           f"batch of {batch['batch']}: {batch['batched_s']:.2f} s against {batch['alone_s']:.2f} s")
+    print(f"  two cores, forward passes per second on one {SECONDS} s item: 2 processes × 1 thread "
+          f"{cores['processes']:.3f}, 1 process × 2 threads {cores['threads']:.3f}, 1 × 1 "
+          f"{cores['single']:.3f}; 2 threads change the output: max |Δ| {cores['diff']:.2g} "
+          f"({cores['load']})")
     return 1 if missed or not batch["identical"] else 0
+
+
+def _forwards(args: tuple[dict, int, int]) -> tuple[float, Any]:
+    """In a fresh process: ``n`` timed forward passes at ``threads`` threads (after one untimed);
+    returns passes per second and the last output."""
+    import time
+
+    import torch
+
+    options, threads, n = args
+    torch.set_num_threads(threads)
+    net = nc.load_model_module().build(**options).eval()
+    g = torch.Generator().manual_seed(0)
+    frames = int(SECONDS * 22050 / 256)
+    x = torch.randn(1, frames * 256, generator=g)
+    mel = torch.randn(1, 80, frames, generator=g)
+    t = torch.tensor([10.0])
+    with torch.inference_mode():
+        y = net(x, mel, t)
+        t0 = time.perf_counter()
+        for _ in range(n):
+            y = net(x, mel, t)
+    return n / (time.perf_counter() - t0), y.numpy()
+
+
+def measure_cores(cfg, quick: bool = False, n: int = 4) -> dict[str, Any]:
+    """Two cores used by two one-thread processes against one two-thread process (and one
+    thread alone), each in fresh spawned processes, and whether two threads change the output."""
+    import multiprocessing as mp
+
+    import numpy as np
+
+    opts = {k: v for k, v in cfg.options.items() if k in nc.TINY}
+    load = nc.load_average()
+    ctx = mp.get_context("spawn")
+    with ctx.Pool(2) as pool:
+        pair = pool.map(_forwards, [(opts, 1, n), (opts, 1, n)])
+    with ctx.Pool(1) as pool:
+        [(two, y2)] = pool.map(_forwards, [(opts, 2, n)])
+        [(one, y1)] = pool.map(_forwards, [(opts, 1, n)])
+    return {"processes": pair[0][0] + pair[1][0], "threads": two, "single": one,
+            "diff": float(np.max(np.abs(y2 - y1))), "load": f"{load} at start"}
 
 
 def measure_whole(work: Path, cfg) -> dict[str, Any]:
