@@ -1,5 +1,5 @@
 """Plots and report text read by people: tick labels, titles, budget, recommended point, colours,
-spectrogram axes, and Markdown without needless HTML entities.
+spectrogram axes (HTML around the image), and Markdown without needless HTML entities.
 
 Figures are inspected through matplotlib's own artist API after drawing (tick label texts,
 window extents in pixels). Markdown: CommonMark 0.31 spec, "Block quotes" (``>`` only opens a
@@ -10,6 +10,7 @@ as ``&gt;`` to someone reading the file).
 from __future__ import annotations
 
 import json
+import re
 
 import matplotlib.colors as mcolors
 import numpy as np
@@ -18,7 +19,7 @@ import pytest
 from test_report_fixture import make_run
 
 from vocobench.report import ReportOptions, render_report
-from vocobench.report.listening import SPEC_NPERSEG, spectrogram_figure
+from vocobench.report import spectrogram
 from vocobench.report.plots import rtf_figure, spread
 
 MARGINS = {"mcd_db": 0.5, "pesq_wb": 0.1}
@@ -125,20 +126,31 @@ def test_spread_dots_keep_one_colour_per_utterance(result, tmp_path):
     assert [t.get_text() for t in ax.get_legend().get_texts()] == ["u1", "u2", "u3", "u4"]
 
 
-def test_spectrogram_has_time_and_frequency_axes():
+def test_spectrogram_has_time_and_frequency_axes(tmp_path):
+    # The image is the spectrogram alone, high frequencies in the top row; its axes are HTML
+    # around it: ticks at their value's share of the extent, time 0 to the clip's length,
+    # frequency 0 to sr/2.
+    from PIL import Image
+    from scipy.signal import stft
+
     sr = 16000
     y = np.sin(2 * np.pi * 1000 * np.arange(int(1.5 * sr)) / sr)
-    fig = spectrogram_figure(y, sr)
-    _drawn(fig)
-    ax = fig.axes[0]
-    assert ax.get_xlabel() == "time (s)" and ax.get_ylabel() == "frequency (kHz)"
-    x0, x1, y0, y1 = ax.images[0].get_extent()
-    assert (x0, y0) == (0, 0) and x1 == pytest.approx(1.5) and y1 == pytest.approx(8.0)
-    assert any(t.get_text() for t in ax.get_yticklabels())
-    # The 1 kHz tone is the loudest row: its centre within one STFT bin (sr / nperseg) of 1 kHz.
-    img = ax.images[0].get_array()
-    row = int(np.argmax(img.mean(axis=1)))
-    assert abs((row + 0.5) * y1 / img.shape[0] - 1.0) <= sr / SPEC_NPERSEG / 1000 + y1 / img.shape[0]
+    ext = spectrogram.write_spectrogram(y, sr, tmp_path / "s.png")
+    assert ext.seconds == pytest.approx(1.5) and ext.khz == pytest.approx(8.0)
+    img = np.asarray(Image.open(tmp_path / "s.png").convert("L"), dtype=float)   # magma: brighter = louder
+    frames = stft(y, sr, nperseg=spectrogram.NPERSEG, noverlap=3 * spectrogram.NPERSEG // 4)[1]
+    assert img.shape == (spectrogram.ROWS, min(frames.size, spectrogram.MAX_COLUMNS))
+    # The 1 kHz tone is the brightest row: its centre, counted from the bottom, within one STFT
+    # bin (sr / nperseg) of 1 kHz.
+    row = img.shape[0] - 1 - int(np.argmax(img.mean(axis=1)))
+    height = ext.khz / img.shape[0]
+    assert abs((row + 0.5) * height - 1.0) <= sr / spectrogram.NPERSEG / 1000 + height
+    cell = spectrogram.axes_html('<img src="s.png">', ext)
+    xs = dict(re.findall(r'class="xt" style="left:([\d.]+)%">([\d.]+)<', cell))
+    ys = dict(re.findall(r'class="yt" style="bottom:([\d.]+)%">([\d.]+)<', cell))
+    assert xs == {"0.000": "0", "33.333": "0.5", "66.667": "1", "100.000": "1.5"}
+    assert ys == {"0.000": "0", "25.000": "2", "50.000": "4", "75.000": "6", "100.000": "8"}
+    assert "time (s)" in cell and "frequency (kHz)" in cell
 
 
 def test_summary_keeps_greater_than_signs_readable(tmp_path):

@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-import tomllib
 import warnings
 from pathlib import Path
 from typing import Any, Callable, Sequence
@@ -17,6 +16,8 @@ DEMO_SCENARIO = Path("scenarios") / "pier-announcements"
 
 
 def _option(text: str) -> tuple[str, Any]:
+    import tomllib                       # only for -o values: every other command skips it
+
     key, sep, val = text.partition("=")
     if not sep or not key:
         raise argparse.ArgumentTypeError(f"expected KEY=VALUE, got {text!r}")

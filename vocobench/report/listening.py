@@ -4,7 +4,9 @@ One self-contained HTML file (inline style, no external resources); clips and sp
 are files in ``report/audio/`` and ``report/spectra/`` linked by relative paths, so the report
 folder can be moved or zipped as a whole. Every clip is a peak-normalised copy at
 :data:`PEAK_DBFS` written as 16-bit WAV, so a noisy low-step output cannot play louder than the
-others. Every string that comes from the user (ids, tags, labels, paths) is ``html.escape``'d.
+others. Spectrogram images come from :mod:`vocobench.report.spectrogram` (the image alone, its
+axes in HTML). Every string that comes from the user (ids, tags, labels, paths) is
+``html.escape``'d.
 """
 from __future__ import annotations
 
@@ -22,15 +24,10 @@ import pandas as pd
 from ..keys import labels
 from ..stats import RunStatistics
 from ..textfmt import fmt
+from .spectrogram import CSS as SPEC_CSS
+from .spectrogram import RANGE_DB, Extent, axes_html, write_spectrogram
 
 PEAK_DBFS = -3.0                 # peak of every clip on the page (our choice, below full scale)
-SPEC_NPERSEG = 512               # spectrogram frame (samples), Hann window, 75 % overlap
-SPEC_RANGE_DB = 80.0             # dynamic range shown (common practice, no source)
-SPEC_TOP_DB = -6.0               # a full-scale sine reads −6 dB with scipy's "spectrum" scaling
-SPEC_MAX_COLUMNS = 480           # time columns kept (averaged down), keeps PNGs small
-SPEC_ROWS = 128
-SPEC_SIZE_IN = (4.4, 1.9)        # spectrogram image with its axes, inches at SPEC_DPI
-SPEC_DPI = 100
 
 WARNING = ("Careful with the volume: outputs at few steps can contain loud noise. Every clip "
            f"here is a peak-normalised copy (peak {PEAK_DBFS:g} dBFS, 16-bit WAV); start with the "
@@ -42,7 +39,6 @@ body{font-family:system-ui,sans-serif;margin:1.5em;max-width:1200px;color:#222}
 table{border-collapse:collapse;margin:.5em 0 1.5em}
 td,th{border:1px solid #ccc;padding:.3em .5em;vertical-align:middle;text-align:left}
 th{background:#f3f3f3}
-img.spec{height:190px;width:440px;image-rendering:auto}
 .scores{font-size:.85em;white-space:nowrap}
 .missing{color:#a00}
 code{font-size:.9em}
@@ -101,48 +97,6 @@ def write_clip(src: Path, dst: Path) -> tuple[np.ndarray, int, float]:
     return y, int(sr), gain
 
 
-def spectrogram_figure(y: np.ndarray, sr: int):
-    """Log-magnitude spectrogram with axes: time in s, frequency in kHz (0 to sr/2, low
-    frequencies at the bottom), the same dB range for every clip. Returns a matplotlib Figure."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-    from scipy.signal import stft
-
-    n = SPEC_NPERSEG
-    duration = y.size / sr
-    if y.size < n:
-        y = np.pad(y, (0, n - y.size))
-    _, _, z = stft(y, fs=sr, nperseg=n, noverlap=3 * n // 4, window="hann")
-    db = 20.0 * np.log10(np.abs(z) + 1e-12)
-    db = _pool(_pool(db, SPEC_ROWS, axis=0), SPEC_MAX_COLUMNS, axis=1)
-    fig = Figure(figsize=SPEC_SIZE_IN, dpi=SPEC_DPI, layout="constrained")
-    FigureCanvasAgg(fig)
-    ax = fig.subplots()
-    ax.imshow(db, cmap="magma", vmin=SPEC_TOP_DB - SPEC_RANGE_DB, vmax=SPEC_TOP_DB,
-              origin="lower", aspect="auto", interpolation="nearest",
-              extent=(0.0, max(duration, n / sr), 0.0, sr / 2000.0))
-    ax.set_xlabel("time (s)", fontsize=7, labelpad=1)
-    ax.set_ylabel("frequency (kHz)", fontsize=7, labelpad=1)
-    ax.tick_params(labelsize=6, length=2, pad=1)
-    return fig
-
-
-def write_spectrogram(y: np.ndarray, sr: int, dst: Path) -> None:
-    """:func:`spectrogram_figure` as a PNG."""
-    dst.parent.mkdir(parents=True, exist_ok=True)
-    spectrogram_figure(y, sr).savefig(str(dst), dpi=SPEC_DPI)
-
-
-def _pool(a: np.ndarray, size: int, axis: int) -> np.ndarray:
-    """Average blocks along ``axis`` so that it has at most ``size`` entries."""
-    n = a.shape[axis]
-    if n <= size:
-        return a
-    edges = np.linspace(0, n, size + 1).astype(int)
-    return np.add.reduceat(a, edges[:-1], axis=axis) / np.diff(edges).reshape(
-        (-1, 1) if axis == 0 else (1, -1))
-
-
 def reference_path(entry: Mapping[str, Any], manifest: Mapping[str, Any], run_dir: Path) -> Path | None:
     """Locate a reference recording: absolute, else relative to the test set, the run, the cwd."""
     p = entry.get("path")
@@ -163,6 +117,7 @@ class Cell:
     label: str
     audio: str | None = None          # relative to report/
     image: str | None = None
+    extent: Extent | None = None      # what the spectrogram image spans
     scores: str = ""
     missing: str = ""
 
@@ -249,11 +204,11 @@ def _clip(src: Path, report_dir: Path, stem: str, cell: Cell, written: list[Path
         wav = report_dir / "audio" / f"{stem}.wav"
         y, sr, gain = write_clip(src, wav)
         png = report_dir / "spectra" / f"{stem}.png"
-        write_spectrogram(y, sr, png)
+        extent = write_spectrogram(y, sr, png)
     except Exception as e:              # an unreadable file must not stop the report
         cell.missing = f"could not read audio ({type(e).__name__}: {e})"
         return
-    cell.audio, cell.image = f"audio/{stem}.wav", f"spectra/{stem}.png"
+    cell.audio, cell.image, cell.extent = f"audio/{stem}.wav", f"spectra/{stem}.png", extent
     cell.scores = (cell.scores + "<br>" if cell.scores else "") + esc(f"playback gain {gain:+.1f} dB")
     written += [wav, png]
 
@@ -277,6 +232,7 @@ def _section(i: int, utt: str, entry: Mapping[str, Any], cells: list[Cell]) -> s
             audio = (f'<audio controls preload="metadata" src="{esc(quote(c.audio))}">'
                      "your browser cannot play WAV</audio>")
             img = f'<img class="spec" src="{esc(quote(c.image or ""))}" alt="{esc("spectrogram of " + c.label)}">'
+            img = axes_html(img, c.extent) if c.extent else img
         else:
             audio, img = f'<span class="missing">{esc(c.missing)}</span>', ""
         rows.append(f"<tr><td>{esc(c.label)}</td><td>{audio}</td><td>{img}</td>"
@@ -298,13 +254,13 @@ def _page(run: Any, st: RunStatistics, chosen: Sequence[str], sections: list[str
     shown_text = f"Showing {shown} of {total} utterances." if shown < total else f"{total} utterances."
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             f"<title>{esc('Listening page — ' + Path(run.path).name)}</title>"
-            f"<style>{_STYLE}</style></head><body>"
+            f"<style>{_STYLE}{SPEC_CSS}</style></head><body>"
             "<h1>Listening page</h1>"
             f'<div class="warning" role="alert"><strong>{esc(WARNING)}</strong></div>'
             f"<p>{esc(' · '.join(x for x in info if x))}</p>"
             f"<p>Configurations shown: {esc(', '.join(chosen))}. {esc(shown_text)} "
             "Spectrograms: 0 to half the sample rate, bottom to top; "
-            f"{SPEC_RANGE_DB:g} dB range, same scale for every clip.</p>"
+            f"{RANGE_DB:g} dB range, same scale for every clip.</p>"
             '<p id="audio-status" data-done="0">Audio clips: loading…</p>'
             + "\n".join(sections)
             + f"<script>{_SCRIPT}</script></body></html>\n")
