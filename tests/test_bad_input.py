@@ -179,6 +179,10 @@ def cases():
         'kind = "stride"', 'kind = "cosine"\ns = -5'), ["sweep.schedule.s", "> 0", "-5"])
     yield ("failed share above one", lambda tmp, ts: BASE.format(testset="ts")
            + "\n[run]\nmax_failed_share = 2\n", ["run.max_failed_share", "[0, 1]", "2"])
+    yield ("workers neither a count nor auto", lambda tmp, ts: BASE.format(testset="ts")
+           + '\n[run]\nworkers = "many"\n', ["run.workers", 'or "auto"', "'many'"])
+    yield ("batch of zero", lambda tmp, ts: BASE.format(testset="ts")
+           + "\n[run]\nbatch = 0\n", ["run.batch", "positive integer", "0"])
 
 
 CASES = list(cases())

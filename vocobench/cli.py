@@ -27,6 +27,19 @@ def _option(text: str) -> tuple[str, Any]:
         return key, val
 
 
+def _workers(text: str) -> int | str:
+    """``--workers``: a positive integer or ``auto``."""
+    if text.strip().lower() == "auto":
+        return "auto"
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"must be a positive integer or auto (got {text!r})")
+    return n
+
+
 def cmd_run(a: argparse.Namespace) -> int:
     from .config import load_config
     from .report.terminal import choice_from_args, showing
@@ -163,7 +176,8 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("config", metavar="CONFIG", type=Path, help="TOML run configuration with [search]")
     q.add_argument("--out", type=Path, metavar="DIR",
                    help="output directory (default: from the config, else reports/run)")
-    q.add_argument("--workers", type=int, metavar="N", help="parallel synthesis-and-scoring processes")
+    q.add_argument("--workers", type=_workers, metavar="N", help="parallel synthesis-and-scoring "
+                   "processes, or auto (by cores, memory and cost)")
     q.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
     q.add_argument("--no-plots", action="store_true", help="skip the trace and schedule plots")
     q.add_argument("-q", "--quiet", action="store_true", help="no progress output")
@@ -219,7 +233,9 @@ def _run_flags(r: argparse.ArgumentParser, out_default: str | None = None) -> No
 
     r.add_argument("--out", type=Path, metavar="DIR",
                    help=f"run directory (default: {out_default or 'from the config, else reports/run'})")
-    r.add_argument("--workers", type=int, metavar="N", help="parallel synthesis-and-scoring processes")
+    r.add_argument("--workers", type=_workers, metavar="N", help="parallel synthesis-and-scoring "
+                   "processes, or auto (by cores, memory, device and estimated cost; the default "
+                   "unless [run] workers says otherwise)")
     r.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
     r.add_argument("--no-report", action="store_true", help="skip tables, plots and listening page")
     r.add_argument("--fresh", action="store_true",
