@@ -16,7 +16,7 @@ PKG = Path(__file__).resolve().parents[1] / "vocobench"
 
 # lower number = lower layer; a module may import modules of its own layer or below
 LAYERS: dict[str, int] = {
-    "errors": 0, "params": 0, "textfmt": 0, "keys": 0, "arrays": 0, "fingerprint": 0, "targets": 0,
+    "errors": 0, "params": 0, "bootstrap": 0, "textfmt": 0, "keys": 0, "arrays": 0, "fingerprint": 0, "targets": 0,
     "__init__": 0, "__main__": 9,
     "frontend": 1, "schedules": 1, "samplers": 1, "testset": 1, "outputs": 1, "timing": 1,
     "store": 1, "metrics": 1,

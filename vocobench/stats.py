@@ -33,47 +33,13 @@ from .errors import InputError
 # CONFIG_KEYS, config_labels and ok_mask are re-exported (imported from here before keys.py)
 from .keys import CONFIG_KEYS, ConfigKey, directed_columns, direction  # noqa: F401
 from .keys import labels as config_labels  # noqa: F401
-from .params import Choice, Integer, Param, Real, Table, with_defaults
 from .runtables import (configurations, default_reference, failure_counts, latency_summary,
                         nfe_map, ok_mask, require_item_fields, utterance_means)  # noqa: F401
 
 Config = ConfigKey                      # the name used before keys.py
-DEFAULT_CONFIDENCE = 0.95               # common practice, no source
-# Efron & Tibshirani 1993, "An Introduction to the Bootstrap", Ch. 19 (from memory): about
-# 1000-2000 resamples for interval endpoints.
-DEFAULT_N_RESAMPLES = 2000
-DEFAULT_SEED = 0                        # any fixed value; recorded in every report
-DEFAULT_METHOD = "BCa"                  # Efron 1987
-METHODS = ("BCa", "percentile", "basic")
-
-
-# Settings of every bootstrap interval, declared once; the [decide] options and the gate policy
-# reuse these declarations.
-BOOTSTRAP = Table("bootstrap", [
-    Param("confidence", Real(0.5, 1, closed="left", keep_int=True), DEFAULT_CONFIDENCE,
-          "confidence level of intervals and one-sided bounds"),
-    Param("n_resamples", Integer(low=100), DEFAULT_N_RESAMPLES, "bootstrap resamples"),
-    Param("seed", Integer(low=0), DEFAULT_SEED, "bootstrap seed (recorded)"),
-    Param("method", Choice(METHODS), DEFAULT_METHOD, "bootstrap interval: " + ", ".join(METHODS)),
-], doc="Bootstrap settings (Efron 1979; BCa: Efron 1987).")
-
-
-@dataclass(frozen=True)
-@with_defaults(BOOTSTRAP)
-class BootstrapSettings:
-    """Settings of every bootstrap interval in a report (recorded in the report)."""
-
-    confidence: float
-    n_resamples: int
-    seed: int
-    method: str
-
-    def __post_init__(self) -> None:
-        BOOTSTRAP.apply(self)
-
-    def describe(self) -> dict[str, Any]:
-        return {"confidence": self.confidence, "n_resamples": self.n_resamples, "seed": self.seed,
-                "method": self.method, "unit": "utterance (seeds averaged within an utterance)"}
+# Bootstrap settings live in the light ``bootstrap`` module (no scipy), re-exported here.
+from .bootstrap import (BOOTSTRAP, DEFAULT_CONFIDENCE, DEFAULT_METHOD,  # noqa: E402,F401
+                        DEFAULT_N_RESAMPLES, DEFAULT_SEED, METHODS, BootstrapSettings)
 
 
 # ---------------------------------------------------------------- elementary procedures

@@ -31,7 +31,7 @@ from ..errors import InputError
 from ..inference import min_exact_p, resamples_for, utterances_for_level
 from ..keys import ConfigKey
 from ..report.recommendation import RECOMMENDATION_FILE, read_recommendation
-from ..stats import BootstrapSettings
+from ..bootstrap import BootstrapSettings
 from ..store import Run
 from .baseline import BASELINE_KEY
 from .policy import Policy

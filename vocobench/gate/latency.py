@@ -32,7 +32,7 @@ import pandas as pd
 from scipy import stats as sst
 
 from ..keys import CONFIG_KEYS, ConfigKey, labels
-from ..stats import BootstrapSettings
+from ..bootstrap import BootstrapSettings
 
 HARDWARE_KEYS = ("processor", "cpu_count", "affinity", "machine", "platform", "plugin")
 

@@ -60,7 +60,7 @@ from ..errors import InputError
 from ..keys import ConfigKey
 from ..params import (Boolean, Custom, Integer, MapOf, Param, Real, Table, check, is_number,
                       read_toml, with_defaults)
-from ..stats import BOOTSTRAP, BootstrapSettings
+from ..bootstrap import BOOTSTRAP, BootstrapSettings
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,7 @@ from typing import Any, Mapping
 
 from ..params import (Boolean, Integer, ListOf, MapOf, OrOff, Param, Real, String, Table,
                       with_defaults)
-from ..stats import BOOTSTRAP, BootstrapSettings
+from ..bootstrap import BOOTSTRAP, BootstrapSettings
 
 DEFAULT_MARGIN_REL = 0.05       # our choice: 5 % of the reference mean, stated in every report
 DEFAULT_RTF_BUDGET = 1.0        # real time (RTF = synthesis time / audio duration)

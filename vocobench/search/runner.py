@@ -19,7 +19,7 @@ from ..errors import InputError
 from ..keys import directed_columns
 from ..samplers import steps_within
 from ..schedules import ScheduleSpec, geometric, make_spec
-from ..stats import BootstrapSettings
+from ..bootstrap import BootstrapSettings
 from ..store import ITEMS, Journal, RunLock, read_jsonl
 from ..sweep import prepare, process_cap
 from .engine import BudgetSpent, Evaluator
