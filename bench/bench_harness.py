@@ -1,6 +1,6 @@
 """The harness's own cost: overhead, parallel speed-up, re-run cost, memory against test-set size.
 
-Plain script: ``python bench/bench_harness.py [--quick]``. Uses the demo scenario's test set
+Plain script: ``python bench/bench_harness.py [--quick] [--overhead] [--pairs N]``. Uses the demo scenario's test set
 (scenarios/pier-announcements) and vocoder (the analytic denoiser), metrics mcd, pesq_wb and stoi,
 and prints, as ratios against their targets:
 
@@ -8,7 +8,8 @@ and prints, as ratios against their targets:
    hashing, manifest, per-item journal with fsync, saved FLAC outputs, tables; the timing phase is
    measured and shown apart, it is not overhead) against a bare loop that calls the same vocoder
    through the same sampler and the same metric functions on the same items, also with one BLAS
-   thread. Wall and CPU time. Target ≤ 1.05×.
+   thread. Wall and CPU time, medians of ``--pairs`` runs of each in alternating order; the CPU
+   difference is split into the same calls and each harness-only phase. Target ≤ 1.05×.
 2. **speed-up** — 2 workers over 1 (the main process and one spawned helper) on a metric-bound
    sweep of 432 items (steps 1 and 2: scoring dominates), sweep phase only (``run_jobs``) and
    whole run, plus the time to the first item and the steady-state rate (items journalled per
@@ -19,8 +20,8 @@ and prints, as ratios against their targets:
    gain changes, so their hashes differ), each sweep in a fresh child process
    (``resource.getrusage``: the child's own peak and, with 2 workers, its pool's). Target ≤ 1.2×.
 
-Phases are timed by wrapping the sweep's ``run_jobs``, ``run_timing`` and ``Journal.append`` in
-this process (instrumentation only). Other load on the machine distorts wall times: when a
+Phases are timed by wrapping sweep functions, ``Journal.append`` and the vocoder's and metrics'
+calls in this process (instrumentation only, on both sides). Other load on the machine distorts wall times: when a
 single-process run's wall time exceeds its CPU time by more than 5 %, the script says so and
 judges the single-process figures on CPU time; the speed-up then has a CPU-time projection.
 """
@@ -109,26 +110,33 @@ def memory_config(testset: Path):
 # -- instrumentation ----------------------------------------------------------------------------
 # name -> the vocobench.sweep module whose global the sweep calls it through
 WRAPPED = {"run_jobs": "orchestrate", "run_timing": "orchestrate", "prepare": "orchestrate",
-           "load_testset": "plan", "job_key": "plan", "save_audio": "worker",
-           "write_tables": "orchestrate"}
+           "estimate": "orchestrate", "_manifest_text": "orchestrate", "write_tables": "orchestrate",
+           "save_audio": "worker", "audio_sha": "worker", "as_waveform": "worker"}
+# calls of the vocoder and the metrics, made by both sides ("shared"); inside these phases they
+# are harness-only work (the estimate's probe) or not overhead (the timing phase)
+NOT_SHARED = ("estimate", "run_timing")
 
 
 class Phases:
-    """Wall and CPU time spent in sweep functions (summed over calls), and item-journal times."""
+    """Wall and CPU time spent in sweep functions (summed over calls), item-journal times, and
+    the CPU time of the vocoder and metric calls both sides make (``cpu["shared"]``)."""
 
     def __init__(self) -> None:
         import importlib
 
-        from vocobench import store
+        from vocobench import contracts, store
+        from vocobench.metrics.base import Metric
 
         self.wall: dict[str, float] = {}
         self.cpu: dict[str, float] = {}
         self.started: dict[str, float] = {}
         self.appends: list[float] = []
+        self.depth = 0                  # > 0: inside a shared call or a NOT_SHARED phase
         for name, where in WRAPPED.items():
             mod = importlib.import_module(f"vocobench.sweep.{where}")
             setattr(mod, name, self._timed(name, getattr(mod, name)))
-        self._timed("journal", store.Journal.append)     # registers the counters
+        contracts.run_plan = self._shared(contracts.run_plan)   # the denoiser's sampler loop
+        Metric.prepare, Metric.score = self._shared(Metric.prepare), self._shared(Metric.score)
         original = store.Journal.append
         phases = self
 
@@ -149,10 +157,25 @@ class Phases:
         def wrapper(*a: Any, **k: Any) -> Any:
             t0, c0 = time.perf_counter(), time.process_time()
             self.started.setdefault(name, t0)
+            self.depth += name in NOT_SHARED
             try:
                 return fn(*a, **k)
             finally:
+                self.depth -= name in NOT_SHARED
                 self._add(name, t0, c0)
+        return wrapper
+
+    def _shared(self, fn: Any) -> Any:
+        def wrapper(*a: Any, **k: Any) -> Any:
+            if self.depth:                       # nested, or not a shared call here
+                return fn(*a, **k)
+            t0, c0 = time.perf_counter(), time.process_time()
+            self.depth += 1
+            try:
+                return fn(*a, **k)
+            finally:
+                self.depth -= 1
+                self._add("shared", t0, c0)
         return wrapper
 
     def reset(self) -> None:
@@ -178,33 +201,51 @@ def harness_run(cfg, out: Path, phases: Phases, workers: int) -> dict[str, Any]:
             "appends": list(phases.appends), "cpu_by": dict(phases.cpu)}
 
 
-def bare_loop(cfg, testset) -> dict[str, float]:
+def bare_loop(cfg, testset, phases: Phases) -> dict[str, float]:
     """The same items with no harness: construct, synthesise, equalise lengths, score."""
     from neural_common import bare_loop as plain_loop
 
     from vocobench.analytic import AnalyticDenoiser
     from vocobench.contracts import Plugin
 
-    return plain_loop(cfg, 1, testset, lambda c: Plugin.wrap(AnalyticDenoiser(**c.options)))
+    phases.reset()
+    out = plain_loop(cfg, 1, testset, lambda c: Plugin.wrap(AnalyticDenoiser(**c.options)))
+    return {**out, "shared_cpu": phases.cpu.get("shared", 0.0)}
 
 
 # -- the four measurements -------------------------------------------------------------------
-def measure_overhead(work: Path, phases: Phases, quick: bool) -> dict[str, Any]:
+def measure_overhead(work: Path, phases: Phases, quick: bool, pairs: int) -> dict[str, Any]:
+    """``pairs`` bare-loop and harness runs, in alternating order (a drift in the machine's load
+    hits both sides); the median ratios, and the median pair (by cpu ratio) for the details."""
+    import statistics
+
     from vocobench.testset import TestSet, load_testset
 
     cfg = overhead_config(quick)
     ts = load_testset(cfg.testset)
     # warm-up (lazy imports, caches): per-process costs, paid by neither side below
     tiny = demo_config(steps=[1], samplers=["ddim"], seeds=[0], schedules=["uniform"])
-    bare_loop(tiny, TestSet(ts.source, ts.utterances[:1]))
+    bare_loop(tiny, TestSet(ts.source, ts.utterances[:1]), phases)
     harness_run(tiny, work / "warm-up", phases, workers=1)
-    bare = bare_loop(cfg, ts)
-    h = harness_run(cfg, work / "overhead", phases, workers=1)
-    wall, cpu = h["wall"] - h["timing"], h["cpu"] - h["timing_cpu"]
-    return {"items": bare["items"], "bare_s": bare["wall"], "bare_cpu_s": bare["cpu"],
-            "harness_s": wall, "harness_cpu_s": cpu, "timing_phase_s": h["timing"],
-            "first_run_s": h["wall"], "first_run_cpu_s": h["cpu"], "ratio": wall / bare["wall"],
-            "cpu_ratio": cpu / bare["cpu"], "cpu_by": h["cpu_by"], "cfg": cfg}
+    runs = []
+    for i in range(pairs):
+        got = {side: bare_loop(cfg, ts, phases) if side == "bare" else
+               harness_run(cfg, work / "overhead", phases, workers=1)
+               for side in (("harness", "bare") if i % 2 else ("bare", "harness"))}
+        bare, h = got["bare"], got["harness"]
+        wall, cpu = h["wall"] - h["timing"], h["cpu"] - h["timing_cpu"]
+        runs.append({"items": bare["items"], "bare_s": bare["wall"], "bare_cpu_s": bare["cpu"],
+                     "harness_s": wall, "harness_cpu_s": cpu, "timing_phase_s": h["timing"],
+                     "first_run_s": h["wall"], "first_run_cpu_s": h["cpu"],
+                     "ratio": wall / bare["wall"], "cpu_ratio": cpu / bare["cpu"],
+                     "cpu_by": h["cpu_by"], "bare_shared_cpu_s": bare["shared_cpu"]})
+    ratios = [r["ratio"] for r in runs]
+    cpu_ratios = [r["cpu_ratio"] for r in runs]
+    mid = sorted(runs, key=lambda r: r["cpu_ratio"])[len(runs) // 2]
+    return {**mid, "ratio": statistics.median(ratios), "cpu_ratio": statistics.median(cpu_ratios),
+            "ratios": ratios, "cpu_ratios": cpu_ratios, "cfg": cfg,
+            "contention": max(max(r["bare_s"] / r["bare_cpu_s"], r["harness_s"] / r["harness_cpu_s"])
+                              for r in runs)}
 
 
 def measure_rerun(work: Path, phases: Phases, first: dict[str, Any]) -> dict[str, Any]:
@@ -310,6 +351,23 @@ def _cache_everything_mb(testset: Path) -> float:
 
 
 # -- report --------------------------------------------------------------------------------------
+def gap_parts(o: dict[str, Any]) -> list[tuple[str, float]]:
+    """Harness CPU minus bare-loop CPU, in parts that add up to it: the same vocoder and metric
+    calls (slower or faster amid the harness's other work), each harness-only phase, and the
+    rest (per-item bookkeeping, reading journals, lock; less the bare loop's own set-up)."""
+    by = o["cpu_by"]
+    parts = [("same vocoder and metric calls", by.get("shared", 0.0) - o["bare_shared_cpu_s"]),
+             ("prepare (scan and hashing, plug-in, metrics, job keys)", by.get("prepare", 0.0)),
+             ("cost estimate (probe calls)", by.get("estimate", 0.0)),
+             ("manifest", by.get("_manifest_text", 0.0)),
+             ("journal appends (JSON + fsync)", by.get("journal", 0.0)),
+             ("saved FLAC outputs", by.get("save_audio", 0.0)),
+             ("output checks and hashes", by.get("as_waveform", 0.0) + by.get("audio_sha", 0.0)),
+             ("tables", by.get("write_tables", 0.0))]
+    rest = o["harness_cpu_s"] - o["bare_cpu_s"] - sum(v for _, v in parts)
+    return [*parts, ("rest", rest)]
+
+
 def verdict(ok: bool) -> str:
     return "meets target" if ok else "MISSES target"
 
@@ -319,6 +377,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--quick", action="store_true",
                     help="smaller sweeps (checks the script; figures dominated by fixed costs)")
     ap.add_argument("--keep", type=Path, help="keep the run directories here")
+    ap.add_argument("--overhead", action="store_true", help="measurement 1 only")
+    ap.add_argument("--pairs", type=int, default=5,
+                    help="bare/harness pairs of measurement 1, alternating order (default 5)")
     ap.add_argument("--rss-child", nargs=3, metavar=("TESTSET", "OUT", "WORKERS"),
                     help=argparse.SUPPRESS)
     a = ap.parse_args(argv)
@@ -333,18 +394,19 @@ def main(argv: list[str] | None = None) -> int:
     phases = Phases()
     ok = True
     try:
-        o = measure_overhead(work, phases, a.quick)
-        r = measure_rerun(work, phases, o)
-        s = measure_speedup(work, phases, a.quick)
-        m = measure_memory(work)
+        o = measure_overhead(work, phases, a.quick, max(a.pairs, 1))
+        if not a.overhead:
+            r = measure_rerun(work, phases, o)
+            s = measure_speedup(work, phases, a.quick)
+            m = measure_memory(work)
     finally:
         if a.keep is None:
             shutil.rmtree(work, ignore_errors=True)
     load.append(os.getloadavg()[0])
 
     # a single-threaded run that gets its core has wall ≈ cpu; more means other load competed
-    contention = max(o["bare_s"] / o["bare_cpu_s"], o["harness_s"] / o["harness_cpu_s"],
-                     s["sweep1_s"] / max(s["serial_cpu_s"], 1e-9))
+    contention = max([o["contention"],
+                      *([] if a.overhead else [s["sweep1_s"] / max(s["serial_cpu_s"], 1e-9)])])
     busy = contention > CONTENDED
     if busy:
         print(f"note: other load competed for the CPUs (single-process wall/cpu up to "
@@ -352,24 +414,28 @@ def main(argv: list[str] | None = None) -> int:
               "verdicts use CPU time, and the speed-up is better read from its cpu projection")
     good = (o["cpu_ratio"] if busy else o["ratio"]) <= TARGETS["overhead"]
     ok &= good
-    print(f"\n1. overhead, {o['items']} items, workers 1, one BLAS thread:")
-    print(f"   bare loop {o['bare_s']:.2f} s (cpu {o['bare_cpu_s']:.2f} s); harness "
+    print(f"\n1. overhead, {o['items']} items, workers 1, one BLAS thread, {len(o['ratios'])} "
+          "pairs of runs:")
+    print(f"   ratio {o['ratio']:.3f}x wall, {o['cpu_ratio']:.3f}x cpu, medians "
+          f"(target <= {TARGETS['overhead']}x): {verdict(good)}")
+    print("   pairs: wall " + ", ".join(f"{x:.3f}" for x in o["ratios"]) + "; cpu "
+          + ", ".join(f"{x:.3f}" for x in o["cpu_ratios"]))
+    print(f"   median pair: bare loop {o['bare_s']:.2f} s (cpu {o['bare_cpu_s']:.2f} s); harness "
           f"{o['harness_s']:.2f} s (cpu {o['harness_cpu_s']:.2f} s) + timing phase "
           f"{o['timing_phase_s']:.2f} s")
-    print(f"   ratio {o['ratio']:.3f}x wall, {o['cpu_ratio']:.3f}x cpu "
-          f"(target <= {TARGETS['overhead']}x): {verdict(good)}")
-    by = o["cpu_by"]
-    parts = [("prepare (test-set scan, plug-in, metrics, job keys)", by.get("prepare", 0.0)),
-             ("  of which job keys", by.get("job_key", 0.0)),
-             ("  of which test-set scan and hashing", by.get("load_testset", 0.0)),
-             ("journal appends (JSON + fsync, items and timing)", by.get("journal", 0.0)),
-             ("saved FLAC outputs", by.get("save_audio", 0.0)),
-             ("tables (items.csv, timing.csv)", by.get("write_tables", 0.0))]
-    print("   harness-only cpu: " + "; ".join(f"{k} {v:.2f} s" for k, v in parts))
-    flac = by.get("save_audio", 0.0)
+    print("   harness - bare, cpu: " + "; ".join(f"{k} {v:+.3f} s" for k, v in gap_parts(o)))
+    flac = o["cpu_by"].get("save_audio", 0.0)
     print(f"   without the saved FLAC outputs (requested output, not bookkeeping): "
           f"{(o['harness_cpu_s'] - flac) / o['bare_cpu_s']:.3f}x cpu")
+    if not a.overhead:
+        ok &= report_others(r, s, m, busy)
+    print(f"\nload average {load[1]:.1f} (after the measurements)")
+    return 0 if ok else 1
 
+
+def report_others(r: dict[str, Any], s: dict[str, Any], m: dict[str, Any], busy: bool) -> bool:
+    """Print measurements 2–4; whether each meets its target."""
+    ok = True
     good = s["ratio"] >= TARGETS["speedup"]
     ok &= good
     print(f"\n2. speed-up, {s['items']} metric-bound items (steps 1, 2), 2 workers over 1:")
@@ -401,8 +467,7 @@ def main(argv: list[str] | None = None) -> int:
               f"(target <= {TARGETS['memory']}x): {verdict(good)}")
     print(f"   (keeping every utterance's audio, features and metric states would hold "
           f"~{m['cache_all_mb']:.0f} MiB more)")
-    print(f"\nload average {load[1]:.1f} (after the measurements)")
-    return 0 if ok else 1
+    return ok
 
 
 if __name__ == "__main__":

@@ -165,3 +165,29 @@ def test_failed_items_stay_failed_unless_retried_and_fresh_recomputes(tmp_path, 
     run(c, out, report=False, fresh=True)
     assert "--fresh: every item is computed again" in capsys.readouterr().err
     assert len(read_jsonl(out / "items.jsonl")) == 5
+
+
+def test_a_class_and_its_instance_are_hashed_once(tmp_path, monkeypatch, fresh_import):
+    from vocobench.sweep import plan
+
+    _project(tmp_path)
+    monkeypatch.syspath_prepend(str(tmp_path))
+    import vpkg.model
+
+    calls = []
+    real = plan.code_fingerprint
+    monkeypatch.setattr(plan, "code_fingerprint", lambda obj: calls.append(obj) or real(obj))
+    cfg = parse_config({"vocoder": {"target": "vpkg.model:Voc"}, "testset": {"path": str(DEMO)}},
+                       tmp_path, str(tmp_path / "cfg.toml"))
+    ident = plan.vocoder_identity(cfg, plan.Plugin.wrap(vpkg.model.Voc()), vpkg.model.Voc)
+    assert len(calls) == 1
+    # the same fingerprint as joining the (equal) code of both objects once
+    assert ident.fingerprint == hashlib.sha256(real(vpkg.model.Voc).encode()).hexdigest()[:16]
+
+
+def test_package_versions_are_a_fresh_table_each_time():
+    from vocobench.sweep import package_versions
+
+    first = package_versions()
+    first["numpy"] = "edited"
+    assert package_versions()["numpy"] != "edited"

@@ -110,3 +110,20 @@ def test_items_and_report_csv_files_are_neutralised(tmp_path):
     assert "'=cos/ddim/64" in {r["config"] for r in table}
     worst = (run_dir / "report" / "worst_utterances.csv").read_text()
     assert "=HYPERLINK" in worst and ",=HYPERLINK" not in worst and "\n=HYPERLINK" not in worst
+
+
+def test_saved_flac_is_the_file_soundfile_writes_and_clips_only_the_copy(tmp_path):
+    # encoded in memory, then written at once: byte for byte what libsndfile writes to a file
+    import numpy as np
+    import soundfile as sf
+
+    from vocobench.outputs import save_audio
+
+    y = (0.4 * np.random.default_rng(3).standard_normal(30001)).astype(np.float32)
+    y[::101] = 1.7                                         # beyond ±1: clipped in the copy
+    keep = y.copy()
+    save_audio(tmp_path / "audio" / "k.flac", y, 22050)
+    sf.write(str(tmp_path / "direct.flac"), np.clip(y, -1.0, 1.0), 22050, format="FLAC",
+             subtype="PCM_24")
+    assert (tmp_path / "audio" / "k.flac").read_bytes() == (tmp_path / "direct.flac").read_bytes()
+    assert np.array_equal(y, keep) and not (tmp_path / "audio" / "k.flac.part").exists()

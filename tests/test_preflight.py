@@ -113,3 +113,19 @@ def test_a_resumed_grid_is_estimated_from_its_own_items(tmp_path, capsys):
     assert main(["run", str(cfg), "--out", str(out), "--dry-run"]) == 0
     text = capsys.readouterr().out
     assert "16 reused, 8 to compute" in text and "measured on finished items of this run" in text
+
+
+def test_probe_features_are_the_front_end_of_the_probe_with_one_thread_and_a_fresh_copy():
+    import numpy as np
+
+    from vocobench.analytic import DEMO_FRONTEND
+    from vocobench.check import probe_signal
+    from vocobench.sweep.preflight import probe_features
+    from vocobench.timing import thread_limit
+
+    with thread_limit(1):
+        expected = DEMO_FRONTEND(probe_signal(DEMO_FRONTEND.sample_rate))
+    first = probe_features(DEMO_FRONTEND)
+    assert np.array_equal(first, expected)
+    first[:] = 0.0                                          # a caller's change stays its own
+    assert np.array_equal(probe_features(DEMO_FRONTEND), expected)

@@ -43,16 +43,20 @@ def file_digest(path: str | Path) -> str:
     except OSError as e:
         raise InputError(f"cannot read file for fingerprinting: {e.strerror}", field="fingerprint",
                          value=str(path)) from None
-    key = str(p)
-    hit = _FILE_CACHE.get(key)
+    return _digest(str(p), st)
+
+
+def _digest(path: str, st: os.stat_result) -> str:
+    """sha256 of ``path`` whose ``stat`` the caller took, through the size/mtime cache."""
+    hit = _FILE_CACHE.get(path)
     if hit and hit[0] == st.st_size and hit[1] == st.st_mtime_ns:
         return hit[2]
     h = hashlib.sha256()
-    with open(p, "rb") as f:
+    with open(path, "rb") as f:
         for block in iter(lambda: f.read(CHUNK_BYTES), b""):
             h.update(block)
     digest = h.hexdigest()
-    _FILE_CACHE[key] = (st.st_size, st.st_mtime_ns, digest)
+    _FILE_CACHE[path] = (st.st_size, st.st_mtime_ns, digest)
     return digest
 
 
@@ -83,12 +87,16 @@ def code_fingerprint(target: Any) -> str:
     root, paths = files
     h = hashlib.sha256()
     budget = MAX_PACKAGE_BYTES
-    for i, path in enumerate(paths):
-        rel = path.relative_to(root).as_posix() if path.is_relative_to(root) else path.name
-        size = path.stat().st_size
+    for i, path in enumerate(paths):        # one stat per file, no resolve (walked paths)
+        try:
+            rel = path.relative_to(root).as_posix()
+        except ValueError:
+            rel = path.name
+        st = path.stat()
+        size = st.st_size
         if i < MAX_PACKAGE_FILES and size <= budget:
             budget -= size
-            h.update(f"{rel}\0{file_digest(path)}\n".encode())
+            h.update(f"{rel}\0{_digest(str(path), st)}\n".encode())
         else:                           # past the bounds: name and size only
             h.update(f"{rel}\0size {size}\n".encode())
     return h.hexdigest()[:DIGEST_CHARS]

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import hashlib
+import io
 from pathlib import Path
 from typing import Any
 
@@ -42,14 +43,19 @@ def as_waveform(out: Any) -> np.ndarray:
 
 def audio_sha(y: np.ndarray) -> str:
     """SHA-256 (first 16 hex digits) of the float32 little-endian samples."""
-    return hashlib.sha256(np.ascontiguousarray(y, dtype="<f4").tobytes()).hexdigest()[:16]
+    return hashlib.sha256(memoryview(np.ascontiguousarray(y, dtype="<f4"))).hexdigest()[:16]
 
 
 def save_audio(path: Path, y: np.ndarray, sample_rate: int) -> None:
-    """24-bit FLAC; samples beyond ±1 are clipped in the saved copy only (scores use the original)."""
+    """24-bit FLAC; samples beyond ±1 are clipped in the saved copy only (scores use the original).
+
+    Encoded in memory and written with one call (libsndfile writing a file directly makes many
+    small writes and seeks; the bytes are the same)."""
     import soundfile as sf
 
+    buf = io.BytesIO()
+    sf.write(buf, np.clip(y, -1.0, 1.0), sample_rate, format="FLAC", subtype="PCM_24")
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(path.name + ".part")
-    sf.write(str(tmp), np.clip(y, -1.0, 1.0), sample_rate, format="FLAC", subtype="PCM_24")
+    tmp.write_bytes(buf.getbuffer())
     tmp.replace(path)

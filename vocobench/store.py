@@ -53,15 +53,16 @@ def dumps(obj: Any) -> str:
 
 
 def _nan_to_none(o: Any) -> Any:
-    if isinstance(o, float) and not math.isfinite(o):
-        return None if math.isnan(o) else ("inf" if o > 0 else "-inf")
-    if isinstance(o, Mapping):
+    t = type(o)                 # exact built-in types first: typing's ABC checks are slow
+    if t is str or t is int or t is bool or o is None:
+        return o
+    if isinstance(o, float):
+        return o if math.isfinite(o) else None if math.isnan(o) else ("inf" if o > 0 else "-inf")
+    if t is dict or isinstance(o, Mapping):
         return {k: _nan_to_none(v) for k, v in o.items()}
-    if isinstance(o, (list, tuple)):
+    if t is list or isinstance(o, (list, tuple)):
         return [_nan_to_none(v) for v in o]
-    if isinstance(o, np.floating):
-        return _nan_to_none(float(o))
-    return o
+    return _nan_to_none(float(o)) if isinstance(o, np.floating) else o
 
 
 def current_umask() -> int:

@@ -7,6 +7,7 @@ returns one float per column. Both validate their inputs here, so metric modules
 """
 from __future__ import annotations
 
+import functools
 import importlib
 import importlib.util
 import math
@@ -241,7 +242,10 @@ def _as_rate(sr: Any) -> int:
     return int(sr)
 
 
+@functools.lru_cache(maxsize=None)
 def _version(dist: str) -> str:
+    """Installed version of ``dist``, looked up once per process (importlib.metadata parses the
+    package's metadata on every call)."""
     try:
         return metadata.version(dist)
     except metadata.PackageNotFoundError:

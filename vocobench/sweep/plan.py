@@ -5,6 +5,7 @@ Jobs are utterance × schedule × sampler × steps × seed. :func:`prepare` vali
 """
 from __future__ import annotations
 
+import functools
 import hashlib
 import inspect
 import sys
@@ -116,16 +117,23 @@ def _plugin_hw(plugin: Plugin) -> dict[str, Any]:
 
 def package_versions() -> dict[str, str]:
     """Installed versions of vocobench and the packages that can change its results."""
+    return dict(_package_versions())
+
+
+@functools.lru_cache(maxsize=1)
+def _package_versions() -> tuple[tuple[str, str], ...]:
+    """Looked up once per process (importlib.metadata parses each package's metadata on every
+    call, ~6 ms for these); installed versions do not change under a running sweep."""
     from importlib.metadata import PackageNotFoundError, version
 
-    out = {}
+    out = []
     for name in ("vocobench", "numpy", "scipy", "librosa", "soundfile", "soxr", "pystoi", "pesq",
                  "pandas", "matplotlib", "torch"):
         try:
-            out[name] = version(name)
+            out.append((name, version(name)))
         except PackageNotFoundError:
             pass
-    return out
+    return tuple(out)
 
 
 def timing_utterances(setup: Setup) -> list[Utterance]:
@@ -228,7 +236,13 @@ def vocoder_identity(cfg: RunConfig, plugin: Plugin, target: Any) -> Identity:
         return Identity(fp, f"version {cfg.version!r} from the config (code not hashed)")
     parts: list[str] = []
     said: list[str] = []
+    seen: list[Any] = []
     for obj in (target, plugin.obj):
+        # the module code_fingerprint hashes: a class and its instance share it, hash it once
+        mod = obj if inspect.ismodule(obj) else getattr(obj, "__module__", None) or type(obj).__module__
+        if mod in seen:
+            continue
+        seen.append(mod)
         code = _code_of(obj)
         if code and code[0] not in parts:
             parts.append(code[0])
