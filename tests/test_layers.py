@@ -19,7 +19,7 @@ LAYERS: dict[str, int] = {
     "errors": 0, "params": 0, "bootstrap": 0, "textfmt": 0, "keys": 0, "arrays": 0, "fingerprint": 0, "targets": 0,
     "__init__": 0, "__main__": 9,
     "frontend": 1, "schedules": 1, "samplers": 1, "testset": 1, "outputs": 1, "timing": 1,
-    "store": 1, "metrics": 1,
+    "store": 1, "records": 1, "metrics": 1,
     "contracts": 2, "analytic": 2, "torch_model": 2, "torch_adapter": 2, "torch_analytic": 2,
     "config": 2,
     "check": 3,

@@ -9,6 +9,7 @@ from __future__ import annotations
 import contextlib
 import os
 import platform
+import sys
 import time
 from dataclasses import dataclass
 from typing import Any, Callable, Iterator, Sequence
@@ -91,15 +92,20 @@ def time_call(fn: Callable[[], Any], *, warmup: int = 1, repeats: int = 3,
     return Timing(first_s, times, result)
 
 
+_CONTROLLER: list[Any] = [None, -1]     # threadpoolctl's scan of loaded libraries, reused
+
+
 @contextlib.contextmanager
 def thread_limit(n: int, plugin_obj: Any = None) -> Iterator[None]:
     """Limit BLAS/OpenMP threads (threadpoolctl) and the plug-in's own (``set_threads``) to ``n``."""
-    from threadpoolctl import threadpool_limits
+    from threadpoolctl import ThreadpoolController
 
     setter = getattr(plugin_obj, "set_threads", None)
     if callable(setter):
         setter(n)
-    with threadpool_limits(limits=n):
+    if _CONTROLLER[1] != len(sys.modules):   # a new import may have loaded a BLAS or OpenMP
+        _CONTROLLER[:] = [ThreadpoolController(), len(sys.modules)]
+    with _CONTROLLER[0].limit(limits=n):
         yield
 
 
