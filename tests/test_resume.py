@@ -181,3 +181,53 @@ def test_failures_are_isolated_and_counted(tmp_path):
     assert (items[items.steps == 6].status == "ok").all()
     assert (items[items.steps < 6].status == "failed").all()
     assert time.perf_counter() - t0 < 25, "the hanging call was cut at the timeout"
+
+
+def _children(pid: int) -> set[int]:
+    """PIDs whose parent is ``pid`` (Linux /proc)."""
+    out = set()
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[1]) == pid:
+            out.add(int(stat.parent.name))
+    return out
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except OSError:
+        return False
+    return state != "Z"
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs Linux /proc")
+def test_helpers_of_a_killed_run_exit(tmp_path):
+    # SIGKILL leaves the spawned helpers orphaned; they must notice and exit, not linger
+    # (blocked flushing records nobody will read)
+    cfg = _config(tmp_path, steps=(100, 150, 200, 250), extra="[run]\nworkers = 2\n")
+    proc = subprocess.Popen(_cli("run", str(cfg), "--out", str(tmp_path / "r"), "-q", "--no-report"))
+    helpers: set[int] = set()
+    deadline = time.time() + 120
+    while time.time() < deadline and proc.poll() is None:
+        helpers = {p for p in _children(proc.pid)
+                   if b"spawn_main" in Path(f"/proc/{p}/cmdline").read_bytes()
+                   and b"resource_tracker" not in Path(f"/proc/{p}/cmdline").read_bytes()}
+        lines = (tmp_path / "r" / "items.jsonl").read_bytes().count(b"\n") \
+            if (tmp_path / "r" / "items.jsonl").exists() else 0
+        if helpers and lines >= 1:          # killed while the helper is still starting
+            break
+        time.sleep(0.05)
+    assert helpers and proc.poll() is None, "the run must have a helper when it is killed"
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    deadline = time.time() + 30
+    while time.time() < deadline and any(_alive(p) for p in helpers):
+        time.sleep(0.2)
+    left = [p for p in helpers if _alive(p)]
+    for p in left:
+        os.kill(p, signal.SIGKILL)
+    assert not left, f"orphaned helpers still running 30 s after the kill: {left}"

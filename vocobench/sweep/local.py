@@ -47,12 +47,13 @@ class WorkerDied(InputError, RuntimeError):
         super().__init__(message, source=source, field="run.workers", value=workers)
 
 
-def _local_worker(data: bytes, tasks: Any, results: Any) -> None:
+def _local_worker(data: bytes, tasks: Any, results: Any, parent: int) -> None:
     """Helper process: build the Setup once, then run chunks until the ``None`` sentinel."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)       # the parent handles Ctrl-C
     for name in THREAD_ENV:                             # libraries loaded from now on
         os.environ[name] = "1"
-    parent = os.getppid()
+    # ``parent``: the main process's pid, passed in (asking getppid() here would give init's
+    # when the main process died while this one was still starting, and it would never stop)
     try:
         slot = Slot(pickle.loads(data))
         with slot.thread_limit():                       # libraries already loaded
@@ -61,6 +62,7 @@ def _local_worker(data: bytes, tasks: Any, results: Any) -> None:
                     chunk = tasks.get(timeout=1.0)
                 except queue.Empty:
                     if os.getppid() != parent:          # orphaned: the parent was killed
+                        results.cancel_join_thread()    # nobody reads: do not wait to flush
                         return
                     continue
                 if chunk is None:
@@ -106,7 +108,8 @@ class _LocalPool:
         self.tasks, self.results = ctx.Queue(), ctx.Queue()
         data = pickle.dumps(payload(setup))
         # not daemonic: a user's vocoder may start processes of its own; stop() always reaps them
-        self.procs = [ctx.Process(target=_local_worker, args=(data, self.tasks, self.results),
+        me = os.getpid()
+        self.procs = [ctx.Process(target=_local_worker, args=(data, self.tasks, self.results, me),
                                   name=f"vocobench-worker-{i + 1}") for i in range(helpers)]
         self.source, self.workers = setup.config.source, workers
         self.closed = False                 # sentinels sent: no more chunks for the helpers
