@@ -225,24 +225,29 @@ class MapOf(Constraint):
 
 
 @dataclasses.dataclass(frozen=True)
-class OrOff(Constraint):
-    """``inner``, or ``false`` / ``"none"`` meaning "off" (parsed as ``None``)."""
+class _OrWord(Constraint):
+    """``inner``, or a word with a meaning of its own (:meth:`word` says which value it gives)."""
 
     inner: Constraint
+    also = ""                           # completes "<inner type> or ..." in the docs
 
     @property
     def type_name(self) -> str:         # type: ignore[override]
-        return f"{self.inner.type_name} or false"
+        return f"{self.inner.type_name} or {self.also.split(' for ')[0]}"
 
     def describe(self) -> str:
-        return f"{self.inner.describe()}, or false for none"
+        return f"{self.inner.describe()}, or {self.also}"
 
     def range_text(self) -> str:
         return self.inner.range_text()
 
+    def word(self, value: Any) -> tuple[bool, Any]:
+        raise NotImplementedError
+
     def convert(self, value: Any, where: Where) -> Any:
-        if value is None or value is False or (isinstance(value, str) and value.lower() == "none"):
-            return None
+        is_word, parsed = self.word(value)
+        if is_word:
+            return parsed
         try:
             return self.inner.convert(value, where)
         except InputError:
@@ -250,28 +255,24 @@ class OrOff(Constraint):
 
 
 @dataclasses.dataclass(frozen=True)
-class OrAuto(Constraint):
+class OrOff(_OrWord):
+    """``inner``, or ``false`` / ``"none"`` meaning "off" (parsed as ``None``)."""
+
+    also = "false for none"
+
+    def word(self, value: Any) -> tuple[bool, Any]:
+        off = value is None or value is False or (isinstance(value, str) and value.lower() == "none")
+        return off, None
+
+
+@dataclasses.dataclass(frozen=True)
+class OrAuto(_OrWord):
     """``inner``, or the word ``"auto"`` (kept as the string ``"auto"``): the program decides."""
 
-    inner: Constraint
+    also = '"auto"'
 
-    @property
-    def type_name(self) -> str:         # type: ignore[override]
-        return f"{self.inner.type_name} or \"auto\""
-
-    def describe(self) -> str:
-        return f"{self.inner.describe()}, or \"auto\""
-
-    def range_text(self) -> str:
-        return self.inner.range_text()
-
-    def convert(self, value: Any, where: Where) -> Any:
-        if isinstance(value, str) and value.lower() == "auto":
-            return "auto"
-        try:
-            return self.inner.convert(value, where)
-        except InputError:
-            raise self.fail(value, where) from None
+    def word(self, value: Any) -> tuple[bool, Any]:
+        return isinstance(value, str) and value.lower() == "auto", "auto"
 
 
 @dataclasses.dataclass(frozen=True)
