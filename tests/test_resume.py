@@ -229,3 +229,28 @@ def test_helpers_of_a_killed_run_exit(tmp_path):
     for p in left:
         os.kill(p, signal.SIGKILL)
     assert not left, f"orphaned helpers still running 30 s after the kill: {left}"
+
+
+def test_journal_group_commit(tmp_path, monkeypatch):
+    # A record is in the file the moment append returns (a killed process loses nothing); the
+    # fsync that makes it survive an operating-system crash follows within the interval.
+    from vocobench import store
+
+    synced: list[int] = []
+    real = os.fsync
+    monkeypatch.setattr(store.os, "fsync", lambda fd: (synced.append(fd), real(fd)))
+    j = store.Journal(tmp_path / "j.jsonl", sync_interval_s=0.2)
+    j.append({"key": "a"})
+    assert json.loads((tmp_path / "j.jsonl").read_text()) == {"key": "a"}
+    deadline = time.time() + 5
+    while not synced and time.time() < deadline:
+        time.sleep(0.02)
+    assert synced, "no fsync within the interval"
+    n = len(synced)
+    j.close()
+    assert len(synced) == n, "nothing pending: close does not fsync again"
+    every = store.Journal(tmp_path / "k.jsonl", sync_interval_s=0)
+    for k in "abc":
+        every.append({"key": k})
+    assert len(synced) == n + 3
+    every.close()
