@@ -8,8 +8,8 @@ and prints, as ratios against their targets:
    hashing, manifest, per-item journal with fsync, saved FLAC outputs, tables; the timing phase is
    measured and shown apart, it is not overhead) against a bare loop that calls the same vocoder
    through the same sampler and the same metric functions on the same items, also with one BLAS
-   thread. Wall and CPU time of ``--pairs`` runs of each in alternating order, judged on the ratio
-   of each side's fastest run (the median of the pairs' ratios is printed too); the CPU
+   thread. Wall and CPU time, medians of ``--pairs`` runs of each in alternating order (each
+   side's fastest run is printed too); the CPU
    difference is split into the same calls and each harness-only phase. Target ≤ 1.05×.
 2. **speed-up** — 2 workers over 1 (the main process and one spawned helper) on a metric-bound
    sweep of 432 items (steps 1 and 2: scoring dominates), sweep phase only (``run_jobs``) and
@@ -243,9 +243,9 @@ def measure_overhead(work: Path, phases: Phases, quick: bool, pairs: int) -> dic
     ratios = [r["ratio"] for r in runs]
     cpu_ratios = [r["cpu_ratio"] for r in runs]
     mid = sorted(runs, key=lambda r: r["cpu_ratio"])[len(runs) // 2]
-    # Each side's fastest run: other processes only ever add time, so the minimum is the estimate
-    # least disturbed by them (Python documentation, timeit: "the lowest value gives a lower
-    # bound for how fast your machine can run the given code snippet"). The verdict uses it.
+    # Also each side's fastest run (Python documentation, timeit: "the lowest value gives a lower
+    # bound for how fast your machine can run the given code snippet"), printed for information:
+    # the verdict stays on the median of paired ratios, whose pairs share the machine's state.
     best = {"best_ratio": min(r["harness_s"] for r in runs) / min(r["bare_s"] for r in runs),
             "best_cpu_ratio": min(r["harness_cpu_s"] for r in runs) / min(r["bare_cpu_s"] for r in runs)}
     return {**mid, **best, "ratio": statistics.median(ratios),
@@ -419,13 +419,13 @@ def main(argv: list[str] | None = None) -> int:
         print(f"note: other load competed for the CPUs (single-process wall/cpu up to "
               f"{contention:.2f}): wall times are inflated and noisy, the single-process "
               "verdicts use CPU time, and the speed-up is better read from its cpu projection")
-    good = (o["best_cpu_ratio"] if busy else o["best_ratio"]) <= TARGETS["overhead"]
+    good = (o["cpu_ratio"] if busy else o["ratio"]) <= TARGETS["overhead"]
     ok &= good
     print(f"\n1. overhead, {o['items']} items, workers 1, one BLAS thread, {len(o['ratios'])} "
           "pairs of runs:")
-    print(f"   ratio of each side's fastest run {o['best_ratio']:.3f}x wall, "
-          f"{o['best_cpu_ratio']:.3f}x cpu (target <= {TARGETS['overhead']}x): {verdict(good)}")
-    print(f"   median of the pairs' ratios {o['ratio']:.3f}x wall, {o['cpu_ratio']:.3f}x cpu")
+    print(f"   ratio {o['ratio']:.3f}x wall, {o['cpu_ratio']:.3f}x cpu, medians of the pairs "
+          f"(target <= {TARGETS['overhead']}x): {verdict(good)}")
+    print(f"   each side's fastest run: {o['best_ratio']:.3f}x wall, {o['best_cpu_ratio']:.3f}x cpu")
     print("   pairs: wall " + ", ".join(f"{x:.3f}" for x in o["ratios"]) + "; cpu "
           + ", ".join(f"{x:.3f}" for x in o["cpu_ratios"]))
     print(f"   median pair: bare loop {o['bare_s']:.2f} s (cpu {o['bare_cpu_s']:.2f} s); harness "

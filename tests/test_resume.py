@@ -14,7 +14,6 @@ import sys
 import time
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 import pytest
 
@@ -133,7 +132,6 @@ def test_second_writer_is_refused(tmp_path):
 def _misbehaving_module(tmp: Path) -> None:
     (tmp / "misbehave.py").write_text('''
 import time
-import numpy as np
 from vocobench.analytic import DEMO_FRONTEND
 
 class Voc:
