@@ -132,6 +132,7 @@ def test_second_writer_is_refused(tmp_path):
 def _misbehaving_module(tmp: Path) -> None:
     (tmp / "misbehave.py").write_text('''
 import time
+import numpy as np
 from vocobench.analytic import DEMO_FRONTEND
 
 class Voc:
