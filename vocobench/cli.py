@@ -177,7 +177,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--out", type=Path, metavar="DIR",
                    help="output directory (default: from the config, else reports/run)")
     q.add_argument("--workers", type=_workers, metavar="N", help="parallel synthesis-and-scoring "
-                   "processes, or auto (by cores, memory and cost)")
+                   "processes, or auto (one per usable core, fewer when memory is short)")
     q.add_argument("--scheduler", metavar="ADDRESS", help="send jobs to a Dask scheduler at ADDRESS")
     q.add_argument("--no-plots", action="store_true", help="skip the trace and schedule plots")
     q.add_argument("-q", "--quiet", action="store_true", help="no progress output")
