@@ -13,7 +13,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from ..check import PROBE_SECONDS, PROBE_STEPS, probe_signal
+from ..check import PROBE_SECONDS, probe_signal
 from ..frontend import MelFrontEnd
 from ..schedules import cosine, subsequence
 from ..timing import thread_limit
@@ -21,6 +21,9 @@ from .plan import Job, Setup
 from .timing_phase import missing_repeats, timing_plan
 
 LONG_RUN_S = 3600.0          # a grid estimated to take longer is announced before it starts
+# Steps of the estimate's probe calls: the fewest every built-in sampler runs (the cost is per
+# evaluation; each probe call of a network-sized model is paid before the sweep starts).
+ESTIMATE_STEPS = 2
 
 
 @dataclass
@@ -113,11 +116,11 @@ def probe_features(frontend: MelFrontEnd) -> np.ndarray:
 
 def probe_seconds_per_eval(setup: Setup) -> float:
     """Seconds per network evaluation per second of audio: the vocoder on the contract check's
-    probe at ``PROBE_STEPS`` steps, first sampler of the grid, one thread, second call timed."""
+    probe at ``ESTIMATE_STEPS`` steps, first sampler of the grid, one thread, second call timed."""
     p = setup.plugin
     ts = p.training_schedule
-    sched = subsequence(ts, PROBE_STEPS) if ts is not None and len(ts) >= PROBE_STEPS \
-        else cosine(PROBE_STEPS)
+    sched = subsequence(ts, ESTIMATE_STEPS) if ts is not None and len(ts) >= ESTIMATE_STEPS \
+        else cosine(ESTIMATE_STEPS)
     g = setup.grid[0]
     fn = p.synthesizer(g.sampler, setup.config.sampler_options.get(g.sampler))
     feats = probe_features(p.frontend)
