@@ -9,7 +9,8 @@ DDIM steps, seeds 0 and 1, metrics MCD and STOI. Prints, as ratios against their
 
 1. **whole command** — ``vocobench.sweep.run`` (default workers and threads, timing phase included,
    no report) against a bare loop that builds the same model and makes the same forward and metric
-   calls on the same items with the same thread count. Target ≤ 1.15×.
+   calls on the same items with the same thread count; median of three pairs run in alternating
+   order (single pairs move by ±7 % on a shared machine). Target ≤ 1.15×.
 2. **timing phase** — wall time of the timing phase against the sweep's own synthesis time (the sum
    of the items' ``synth_s``). Target ≤ 30 %.
 3. **batched seeds** — one utterance's seeds through ``TorchDenoiser.sample`` as one batch, one
@@ -34,6 +35,7 @@ import neural_common as nc  # noqa: E402
 
 TARGETS = {"whole": 1.15, "timing": 0.30, "batch": 1.0}
 UTTERANCES, SECONDS, STEPS, SEEDS = 2, 1.5, 4, (0, 1)
+PAIRS = 3             # whole command: median of run/bare pairs in alternating order (3 in --quick too)
 
 
 def main() -> int:
@@ -64,7 +66,8 @@ def main() -> int:
     print(f"  batched audio hashes bit-identical to batch 1: {batch['identical']}; default "
           f"settings chose workers {whole['workers']}, batch {whole['batch']} "
           f"(the run's own words: {whole['why']})")
-    print(f"  details: bare {whole['bare_s']:.1f} s ({whole['bare_threads']} threads), run "
+    print("  whole command / bare loop, each pair: " + ", ".join(f"{x:.3f}" for x in whole["ratios"]))
+    print(f"  details (median pair): bare {whole['bare_s']:.1f} s ({whole['bare_threads']} threads), run "
           f"{whole['run_s']:.1f} s (sweep synthesis {whole['synth_s']:.1f} s, timing phase "
           f"{whole['timing_s']:.1f} s, {whole['workers']} worker(s), {whole['threads']} thread(s)); "
           f"batch of {batch['batch']}: {batch['batched_s']:.2f} s against {batch['alone_s']:.2f} s")
@@ -142,19 +145,27 @@ def measure_whole(work: Path, cfg) -> dict[str, Any]:
     load = nc.load_average()
     warm = nc.scenario_config(work, utterances=1, steps=[1], seeds=[0], seconds=0.5,
                               **{k: v for k, v in cfg.options.items() if k in nc.TINY})
-    run(warm, work / "warm", progress=False, report=False)
-    phases.reset()
-    with nc.clock() as t:
-        out = run(cfg, work / "run", progress=False, report=False)
-    r = load_run(out)
     threads = 1                               # the sweep's items run with one thread
+    run(warm, work / "warm", progress=False, report=False)
     nc.bare_loop(warm, threads=threads)
-    bare = nc.bare_loop(cfg, threads=threads)
-    synth = float(r.items["synth_s"].sum())
-    timing = phases.wall.get("run_timing", 0.0)
-    return {"ratio": t["wall"] / bare["wall"], "timing_share": timing / synth, "bare_s": bare["wall"],
-            "bare_threads": bare["threads"], "run_s": t["wall"], "synth_s": synth,
-            "timing_s": timing, "workers": chosen.get("workers"), "batch": chosen.get("batch"),
+    pairs = []
+    for i in range(PAIRS):                    # alternating order: a drift hits both sides
+        got: dict[str, Any] = {}
+        for side in (("run", "bare") if i % 2 == 0 else ("bare", "run")):
+            if side == "bare":
+                got["bare"] = nc.bare_loop(cfg, threads=threads)["wall"]
+                continue
+            phases.reset()
+            with nc.clock() as t:
+                out = run(cfg, work / f"run{i}", progress=False, report=False)
+            synth = float(load_run(out).items["synth_s"].sum())
+            got.update(run=t["wall"], synth=synth, timing=phases.wall.get("run_timing", 0.0))
+        pairs.append({**got, "ratio": got["run"] / got["bare"]})
+    mid = sorted(pairs, key=lambda p: p["ratio"])[len(pairs) // 2]
+    return {"ratio": mid["ratio"], "ratios": [p["ratio"] for p in pairs],
+            "timing_share": max(p["timing"] / p["synth"] for p in pairs), "bare_s": mid["bare"],
+            "bare_threads": threads, "run_s": mid["run"], "synth_s": mid["synth"],
+            "timing_s": mid["timing"], "workers": chosen.get("workers"), "batch": chosen.get("batch"),
             "why": chosen.get("why", "workers set in the config"), "threads": threads,
             "load": f"{load} at start"}
 
