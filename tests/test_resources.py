@@ -176,6 +176,7 @@ def test_auto_workers_weighs_timing_reuse_against_processes(root):
                                     memory=2**30, rss=2**30).value == 2
     assert resources.choose_workers(setup, setup.jobs, 1.0, 0.1, True, cores=1).value == 1
     assert resources.choose_workers(setup, [], 1.0, 0.1, True, **big).value == 1
+    assert resources.choose_workers(setup, setup.jobs, None, 0.1, True, **big).value == 1
 
 
 def test_the_run_says_what_auto_chose(root, capsys):

@@ -132,8 +132,8 @@ def choose_workers(setup: Setup, todo: Sequence[Job], per_eval_s: float | None,
     cap = limit.value
     if cap == 1 or not todo:
         return Choice(1, "nothing to compute" if not todo else limit.reason)
-    if per_eval_s is None:
-        return Choice(cap, f"{limit.reason} (cost unknown)")
+    if per_eval_s is None:              # the probe failed: keep failures in this process
+        return Choice(1, f"{limit.reason}, but the cost is unknown (the probe call failed)")
     utts, grid, tm = setup.testset.utterances, setup.grid, setup.config.timing
     score = scoring_seconds_per_audio_s(setup)
     sweep = sum(per_eval_s * grid[j.point].nfe * utts[j.utt].duration_s
