@@ -71,7 +71,7 @@ def run(cfg: RunConfig, out_dir: str | Path | None = None, *, progress: bool = T
             choose_workers(setup, plan.todo, est.per_eval_s, prepare_s, reuse)
         n_workers = wchoice.value
         if n_workers > 1:
-            est = estimate(setup, plan.todo, n_workers, tdone, [r for r in records if r["key"] in mine])
+            est = estimate(setup, plan.todo, n_workers, tdone, known=est)
     choices = [f"batch {bchoice.value}: {bchoice.reason}"] \
         if bchoice.value > 1 or cfg_batch not in ("auto", 1) else []
     if wchoice and not sched:

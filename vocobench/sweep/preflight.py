@@ -84,6 +84,7 @@ class Estimate:
     evaluations: float = 0.0             # network evaluations × seconds of audio, items left
     per_eval_s: float | None = None      # measured seconds per evaluation per second of audio
     note: str = ""
+    source: str = ""                     # where per_eval_s was measured
 
     def line(self) -> str:
         if self.seconds is None:
@@ -114,13 +115,19 @@ def probe_features(frontend: MelFrontEnd) -> np.ndarray:
     return _PROBE_FEATURES[key].copy()
 
 
+def probe_schedule(plugin: Any) -> Any:
+    """The ``ESTIMATE_STEPS``-step schedule the probe calls run: a subsequence of the training
+    schedule, or a cosine schedule for a plug-in without one."""
+    ts = plugin.training_schedule
+    return subsequence(ts, ESTIMATE_STEPS) if ts is not None and len(ts) >= ESTIMATE_STEPS \
+        else cosine(ESTIMATE_STEPS)
+
+
 def probe_seconds_per_eval(setup: Setup) -> float:
     """Seconds per network evaluation per second of audio: the vocoder on the contract check's
     probe at ``ESTIMATE_STEPS`` steps, first sampler of the grid, one thread, second call timed."""
     p = setup.plugin
-    ts = p.training_schedule
-    sched = subsequence(ts, ESTIMATE_STEPS) if ts is not None and len(ts) >= ESTIMATE_STEPS \
-        else cosine(ESTIMATE_STEPS)
+    sched = probe_schedule(p)
     g = setup.grid[0]
     fn = p.synthesizer(g.sampler, setup.config.sampler_options.get(g.sampler))
     feats = probe_features(p.frontend)
@@ -143,10 +150,11 @@ def journal_seconds_per_eval(records: list[Mapping[str, Any]]) -> float | None:
 
 
 def estimate(setup: Setup, todo: list[Job], workers: int, timing_done: Mapping[str, Mapping[int, float]],
-             records: list[Mapping[str, Any]] = ()) -> Estimate:
+             records: list[Mapping[str, Any]] = (), known: Estimate | None = None) -> Estimate:
     """Cost of ``todo`` (over ``workers``) and of the timing blocks still missing repeats:
     steps × seconds of audio × the time per step, measured on the journal's finished items
-    (``records``) or else on the contract check's probe."""
+    (``records``) or else on the contract check's probe; ``known``: an estimate of this run
+    whose measured rate is reused (no probe call again)."""
     utts, grid, tm = setup.testset.utterances, setup.grid, setup.config.timing
     sweep = sum(grid[j.point].nfe * utts[j.utt].duration_s for j in todo)
     timed = 0.0
@@ -156,7 +164,10 @@ def estimate(setup: Setup, todo: list[Job], workers: int, timing_done: Mapping[s
             timed += (tm.warmup + len(missing)) * grid[job.point].nfe * u.duration_s
     if not sweep and not timed:
         return Estimate(0.0)
-    rate, where = journal_seconds_per_eval(records), "finished items of this run"
+    if known is not None and known.per_eval_s is not None:
+        rate, where = known.per_eval_s, known.source
+    else:
+        rate, where = journal_seconds_per_eval(records), "finished items of this run"
     if rate is None:
         where = f"the {PROBE_SECONDS:g} s contract-check probe"
         try:
@@ -164,7 +175,7 @@ def estimate(setup: Setup, todo: list[Job], workers: int, timing_done: Mapping[s
         except Exception as e:              # the sweep isolates such failures item by item
             return Estimate(None, note=f"the probe call raised {type(e).__name__}: {e}")
     note = where + (f", sweep over {workers} workers" if workers > 1 else "")
-    return Estimate(rate * (sweep / max(workers, 1) + timed), sweep + timed, rate, note)
+    return Estimate(rate * (sweep / max(workers, 1) + timed), sweep + timed, rate, note, where)
 
 
 def plan_text(setup: Setup, plan: ReusePlan, est: Estimate) -> str:

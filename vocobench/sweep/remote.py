@@ -99,9 +99,6 @@ class Slot:
                     "differ; give every worker the same environment")
         return self.worker.run(jobs)
 
-    def process(self, job: Job) -> Record:
-        return next(iter(self.run([job])))
-
 
 def where() -> str:
     """``host:pid`` of this process, for messages about a worker."""

@@ -29,9 +29,9 @@ import numpy as np
 
 from ..check import PROBE_SECONDS, probe_signal
 from ..contracts import Plugin
-from ..schedules import cosine, subsequence
 from ..timing import MIN_SAMPLES, thread_limit
 from .plan import Job, Setup
+from .preflight import hms, probe_features, probe_schedule
 from .timing_phase import timing_plan
 
 # Seconds a spawned helper needs before its first item besides what the main process spent
@@ -152,8 +152,6 @@ def choose_workers(setup: Setup, todo: Sequence[Job], per_eval_s: float | None,
     for w in range(2, cap + 1):
         walls[w] = (start + (sweep - start) / w if sweep > start else sweep) + alone
     best = min(walls, key=lambda w: (walls[w], w))
-    from .preflight import hms
-
     est = ", ".join(f"{w}: {hms(walls[w])}" for w in sorted({1, best, cap}))
     why = (" (one process keeps its sweep calls as timing samples)" if best == 1 and reuse_possible
            else "")
@@ -171,9 +169,7 @@ def batch_invariance(plugin: Plugin, sampler: str, options: dict[str, Any] | Non
     if many is None:
         return None
     one = plugin.synthesizer(sampler, options)
-    ts = plugin.training_schedule
-    sched = subsequence(ts, 2) if ts is not None and len(ts) >= 2 else cosine(2)
-    feats = plugin.frontend(probe_signal(plugin.sample_rate))   # type: ignore[misc]
+    sched, feats = probe_schedule(plugin), probe_features(plugin.frontend)
     with thread_limit(1, plugin.obj):
         alone = [np.asarray(one(feats, sched, np.random.default_rng(s)), dtype=np.float64)
                  for s in (0, 1)]
